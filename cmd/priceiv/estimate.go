@@ -1,0 +1,155 @@
+package main
+
+import (
+	"fmt"
+	"io"
+	"os"
+	"strings"
+
+	"github.com/spf13/cobra"
+
+	"priceiv/demand"
+	"priceiv/demo"
+	"priceiv/elasticity"
+)
+
+func newEstimateCmd() *cobra.Command {
+	var mf modelFlags
+	var format, out string
+	var useDemo bool
+	cmd := &cobra.Command{
+		Use:   "estimate [PANEL.csv] [flags]",
+		Short: "Estimate a demand (or any IV) model and print elasticities with bands",
+		Long: `Estimate fits one model on a panel and prints the own-price elasticity
+first, in words and numbers, then the terms, the strength of the cost
+shifters, and what was absorbed and dropped.
+
+A model is stated in demand form (--quantity, --price, --shifters,
+--controls, --form) or in general form (--outcome, --endogenous,
+--exogenous, --instruments). Options can come from a YAML --spec file;
+flags override it.`,
+		Example: `  # the built-in cold-brew market, no files needed
+  priceiv estimate --demo
+
+  # log-log demand with store and product effects, clustered by store
+  priceiv estimate sales.csv --quantity units --price price \
+      --shifters bean_index,freight_index --controls temperature \
+      --fe product,store --cluster store
+
+  # ten-year differences of a state panel, kept for the last year
+  priceiv estimate states.csv --unit State --time Year \
+      --derive 'dq=diff(log(PackPC),10)' --derive 'dp=diff(log(AvgPrs/CPI),10)' \
+      --derive 'dtax=diff(Tax/CPI,10)' --where 'Year == 1995' \
+      --outcome dq --endogenous dp --instruments dtax --vcov hc1
+
+  # the same options kept in a file, as JSON for another program
+  priceiv estimate --spec model.yaml --format json --out result.json`,
+		Args: cobra.MaximumNArgs(1),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			if err := elasticity.CheckFormat(format); err != nil {
+				return err
+			}
+			cmd.SilenceUsage = true
+			spec, panel, err := loadInputs(cmd, &mf, args, useDemo)
+			if err != nil {
+				return err
+			}
+			res, err := runEstimate(panel, spec)
+			if err != nil {
+				return err
+			}
+			return emit(cmd, out, func(w io.Writer) error { return elasticity.WriteEstimate(w, res, format) })
+		},
+	}
+	mf.register(cmd.Flags())
+	cmd.Flags().BoolVar(&useDemo, "demo", false, "run on the built-in cold-brew market (generated in memory, fixed seed)")
+	cmd.Flags().StringVar(&format, "format", "text", "output format: text, json, csv or markdown")
+	cmd.Flags().StringVar(&out, "out", "", "write the output to this file (written only when the run succeeds)")
+	cmd.MarkFlagsMutuallyExclusive("demo", "data")
+	return cmd
+}
+
+// loadInputs resolves the spec and loads (or generates) the panel.
+func loadInputs(cmd *cobra.Command, mf *modelFlags, args []string, useDemo bool) (*demand.Spec, *demand.Panel, error) {
+	if useDemo {
+		m, err := demo.Generate(demo.DefaultConfig())
+		if err != nil {
+			return nil, nil, err
+		}
+		spec, err := mf.resolve(cmd, demoSpec(m))
+		if err != nil {
+			return nil, nil, err
+		}
+		return spec, m.Panel, nil
+	}
+	spec, err := mf.resolve(cmd, demand.Spec{})
+	if err != nil {
+		return nil, nil, err
+	}
+	if len(args) == 1 {
+		if spec.Data != "" && cmd.Flags().Changed("data") {
+			return nil, nil, fmt.Errorf("the panel is given twice (argument %q and --data %q): give it once", args[0], spec.Data)
+		}
+		spec.Data = args[0]
+	}
+	if spec.Data == "" {
+		return nil, nil, fmt.Errorf("no panel given: name a CSV file (priceiv estimate FILE ...), set data: in the --spec file, or try --demo")
+	}
+	delim, _ := spec.DelimiterByte()
+	panel, err := demand.ReadCSVFile(spec.Data, demand.ReadOptions{Delimiter: delim})
+	if err != nil {
+		return nil, nil, err
+	}
+	return spec, panel, nil
+}
+
+// demoSpec is the model the demo market is built to identify.
+func demoSpec(m *demo.Market) demand.Spec {
+	sm := m.Truth.SuggestedModel
+	s := demand.Spec{
+		Data: "demo", Quantity: sm.Quantity, Price: sm.Price, Form: sm.Form,
+		Controls: sm.Controls, Shifters: sm.Shifters, Cluster: sm.Cluster, Product: "product",
+		Unit: "store", Time: "week",
+	}
+	for _, fe := range sm.FixedEffects {
+		s.FE = append(s.FE, strings.Join(fe, "*"))
+	}
+	return s
+}
+
+// runEstimate prepares the panel, builds the design and fits it.
+func runEstimate(panel *demand.Panel, spec *demand.Spec) (*demand.Result, error) {
+	p, drops, err := demand.Prepare(panel, spec)
+	if err != nil {
+		return nil, err
+	}
+	d, err := demand.Build(p, spec, 0)
+	if err != nil {
+		return nil, err
+	}
+	d.Dropped = append(drops, d.Dropped...)
+	fit, fs, err := d.Fit()
+	if err != nil {
+		return nil, err
+	}
+	res := d.Summarize(fit, fs)
+	res.Cautions = nil
+	if len(res.Elasticity) > 0 {
+		res.Cautions = elasticity.Cautions
+	}
+	return res, nil
+}
+
+// emit writes to standard output, or atomically to a file.
+func emit(cmd *cobra.Command, out string, write func(io.Writer) error) error {
+	if out == "" || out == "-" {
+		return write(cmd.OutOrStdout())
+	}
+	if err := elasticity.WriteFileAtomic(out, write); err != nil {
+		return err
+	}
+	fmt.Fprintf(cmd.ErrOrStderr(), "wrote %s\n", out)
+	return nil
+}
+
+var _ = os.Stdout

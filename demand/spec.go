@@ -1,0 +1,190 @@
+package demand
+
+import (
+	"bytes"
+	"errors"
+	"fmt"
+	"os"
+	"reflect"
+	"regexp"
+	"strings"
+
+	"go.yaml.in/yaml/v3"
+)
+
+// Spec states one run: where the panel comes from, how to prepare it and
+// which model to fit. It is read from a YAML file (--spec) and overridden
+// field by field by command-line flags, so a run can be repeated exactly.
+//
+// A model is stated in one of two ways. Demand form: Quantity and Price
+// with Shifters as instruments and Controls as exogenous regressors; Form
+// says how quantity and price enter. General form: Outcome, Endogenous,
+// Exogenous and Instruments, all as given (no transformation).
+type Spec struct {
+	// Data is the panel file (CSV).
+	Data string `yaml:"data,omitempty" json:"data,omitempty"`
+	// Delimiter is the field separator: "," (default), ";" or "tab".
+	Delimiter string `yaml:"delimiter,omitempty" json:"delimiter,omitempty"`
+	// Derive lists derived columns, each "name=EXPR", computed in order.
+	Derive []string `yaml:"derive,omitempty" json:"derive,omitempty"`
+	// Where keeps the rows where the expression holds (after Derive).
+	Where string `yaml:"where,omitempty" json:"where,omitempty"`
+	// Unit and Time name the panel keys for lag and diff.
+	Unit string `yaml:"unit,omitempty" json:"unit,omitempty"`
+	Time string `yaml:"time,omitempty" json:"time,omitempty"`
+
+	// Demand form.
+	Quantity string   `yaml:"quantity,omitempty" json:"quantity,omitempty"`
+	Price    string   `yaml:"price,omitempty" json:"price,omitempty"`
+	Shifters []string `yaml:"shifters,omitempty" json:"shifters,omitempty"`
+	Controls []string `yaml:"controls,omitempty" json:"controls,omitempty"`
+	// Form is log-log (default), semi-log or linear.
+	Form string `yaml:"form,omitempty" json:"form,omitempty"`
+	// Product names the product column (per-product and cross-price
+	// designs, and labels).
+	Product string `yaml:"product,omitempty" json:"product,omitempty"`
+
+	// General form.
+	Outcome     string   `yaml:"outcome,omitempty" json:"outcome,omitempty"`
+	Endogenous  []string `yaml:"endogenous,omitempty" json:"endogenous,omitempty"`
+	Exogenous   []string `yaml:"exogenous,omitempty" json:"exogenous,omitempty"`
+	Instruments []string `yaml:"instruments,omitempty" json:"instruments,omitempty"`
+
+	// FE lists the fixed effects to absorb (id columns).
+	FE []string `yaml:"fe,omitempty" json:"fe,omitempty"`
+	// Cluster lists one or two cluster columns.
+	Cluster []string `yaml:"cluster,omitempty" json:"cluster,omitempty"`
+	// Vcov is iid, hc1 or cluster (default: cluster when Cluster is set,
+	// else hc1).
+	Vcov string `yaml:"vcov,omitempty" json:"vcov,omitempty"`
+	// Estimator is ols, 2sls (default), liml or fuller.
+	Estimator string `yaml:"estimator,omitempty" json:"estimator,omitempty"`
+	// Level is the confidence level of bands (default 0.95).
+	Level float64 `yaml:"level,omitempty" json:"level,omitempty"`
+	// MaxSweeps and Tolerance control fixed-effect absorption.
+	MaxSweeps int     `yaml:"max_sweeps,omitempty" json:"max_sweeps,omitempty"`
+	Tolerance float64 `yaml:"tolerance,omitempty" json:"tolerance,omitempty"`
+}
+
+// ErrSpec marks a problem with a spec file or its fields.
+var ErrSpec = errors.New("bad spec")
+
+// SpecError reports a problem in a spec file at a line.
+type SpecError struct {
+	File string
+	Line int
+	Msg  string
+}
+
+func (e *SpecError) Error() string {
+	if e.Line > 0 {
+		return fmt.Sprintf("%s: line %d: %s", e.File, e.Line, e.Msg)
+	}
+	return fmt.Sprintf("%s: %s", e.File, e.Msg)
+}
+
+func (e *SpecError) Unwrap() error { return ErrSpec }
+
+// SpecKeys lists the keys a spec file may hold.
+func SpecKeys() []string {
+	t := reflect.TypeOf(Spec{})
+	var keys []string
+	for i := 0; i < t.NumField(); i++ {
+		k := strings.Split(t.Field(i).Tag.Get("yaml"), ",")[0]
+		keys = append(keys, k)
+	}
+	return keys
+}
+
+var unknownField = regexp.MustCompile(`line (\d+): field (\S+) not found`)
+
+// ReadSpec reads a YAML spec file. Unknown keys are errors naming the key,
+// its line and the closest known key. Relative data paths are taken
+// relative to the spec file's folder.
+func ReadSpec(path string) (*Spec, error) {
+	b, err := os.ReadFile(path)
+	if err != nil {
+		return nil, err
+	}
+	return ParseSpec(b, path)
+}
+
+// ParseSpec parses spec YAML; name is used in messages.
+func ParseSpec(b []byte, name string) (*Spec, error) {
+	var s Spec
+	dec := yaml.NewDecoder(bytes.NewReader(b))
+	dec.KnownFields(true)
+	if err := dec.Decode(&s); err != nil {
+		if err.Error() == "EOF" {
+			return &s, nil
+		}
+		if m := unknownField.FindStringSubmatch(err.Error()); m != nil {
+			var line int
+			fmt.Sscan(m[1], &line)
+			msg := fmt.Sprintf("unknown key %q", m[2])
+			if c := closeNames(m[2], SpecKeys(), 1); len(c) > 0 {
+				msg += fmt.Sprintf("; did you mean %q?", c[0])
+			}
+			msg += " (known keys: " + strings.Join(SpecKeys(), ", ") + ")"
+			return nil, &SpecError{File: name, Line: line, Msg: msg}
+		}
+		return nil, &SpecError{File: name, Msg: strings.TrimPrefix(err.Error(), "yaml: ")}
+	}
+	return &s, nil
+}
+
+// Marshal returns the spec as YAML (for the run record).
+func (s *Spec) Marshal() []byte {
+	b, _ := yaml.Marshal(s)
+	return b
+}
+
+// DemandForm reports whether the spec states a demand model (quantity and
+// price) rather than a general one.
+func (s *Spec) DemandForm() bool { return s.Quantity != "" || s.Price != "" }
+
+// Check validates the combination of fields (not the data).
+func (s *Spec) Check() error {
+	general := s.Outcome != "" || len(s.Endogenous) > 0 || len(s.Exogenous) > 0 || len(s.Instruments) > 0
+	switch {
+	case s.DemandForm() && general:
+		return fmt.Errorf("%w: state the model either in demand form (quantity, price, shifters, controls) or in general form (outcome, endogenous, exogenous, instruments), not both", ErrSpec)
+	case s.DemandForm():
+		if s.Quantity == "" || s.Price == "" {
+			return fmt.Errorf("%w: the demand form needs both a quantity column (--quantity) and a price column (--price)", ErrSpec)
+		}
+	case general:
+		if s.Outcome == "" {
+			return fmt.Errorf("%w: the general form needs an outcome column (--outcome)", ErrSpec)
+		}
+	default:
+		return fmt.Errorf("%w: no model stated: give --quantity and --price (demand form) or --outcome with --endogenous and --instruments (general form)", ErrSpec)
+	}
+	switch s.Form {
+	case "", "log-log", "semi-log", "linear":
+	default:
+		return fmt.Errorf("%w: unknown form %q: choose log-log, semi-log or linear", ErrSpec, s.Form)
+	}
+	if len(s.Cluster) > 2 {
+		return fmt.Errorf("%w: at most two cluster columns (two-way clustering); got %d", ErrSpec, len(s.Cluster))
+	}
+	if s.Level != 0 && !(s.Level > 0.5 && s.Level < 1) {
+		return fmt.Errorf("%w: level %v outside (0.5, 1): give for example 0.95", ErrSpec, s.Level)
+	}
+	return nil
+}
+
+// DelimiterByte returns the delimiter as a byte.
+func (s *Spec) DelimiterByte() (byte, error) {
+	switch s.Delimiter {
+	case "", ",":
+		return ',', nil
+	case ";":
+		return ';', nil
+	case "tab", "\t", `\t`:
+		return '\t', nil
+	case "|":
+		return '|', nil
+	}
+	return 0, fmt.Errorf("%w: delimiter %q: use \",\", \";\", \"|\" or \"tab\"", ErrSpec, s.Delimiter)
+}
