@@ -530,12 +530,13 @@ type csvScanner struct {
 
 func csvSpace(c byte) bool { return c == ' ' || c == '\t' || c == '\r' }
 
-// trim removes surrounding spaces, tabs and '\r' (but not the delimiter).
-func (s *csvScanner) trim(b []byte) []byte {
-	for len(b) > 0 && csvSpace(b[0]) && b[0] != s.delim {
+// csvTrim removes surrounding spaces, tabs and '\r'. Only a quoted cell
+// can hold the delimiter, and a tab there is trimmed too.
+func csvTrim(b []byte) []byte {
+	for len(b) > 0 && csvSpace(b[0]) {
 		b = b[1:]
 	}
-	for len(b) > 0 && csvSpace(b[len(b)-1]) && b[len(b)-1] != s.delim {
+	for len(b) > 0 && csvSpace(b[len(b)-1]) {
 		b = b[:len(b)-1]
 	}
 	return b
@@ -569,7 +570,7 @@ func (s *csvScanner) field(pos int) (cell []byte, next, term int, bad bool) {
 		}
 		i++
 	}
-	cell = s.trim(data[pos:i])
+	cell = csvTrim(data[pos:i])
 	switch {
 	case i == n:
 		return cell, n, csvEOF, false
@@ -630,7 +631,7 @@ func (s *csvScanner) quoted(q int) (cell []byte, next, term int, bad bool) {
 		s.buf = out
 		cell = out
 	}
-	cell = s.trim(cell)
+	cell = csvTrim(cell)
 	k := end + 1
 	for k < n && csvSpace(data[k]) && data[k] != s.delim {
 		k++

@@ -5,9 +5,11 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"runtime"
 	"slices"
 	"strconv"
 	"strings"
+	"sync"
 )
 
 // PanelKeys names the unit and time columns that lag and diff work with.
@@ -155,6 +157,7 @@ type evaluator struct {
 	free  [][]float64
 	order *panelOrder
 	lags  map[int][]int32
+	parts []badRows // per-chunk records of rows without a finite result
 }
 
 func (ev *evaluator) errAt(n *node, msg string, cause error) error {
@@ -391,6 +394,68 @@ func bad(r, x, y float64) bool {
 	return math.IsInf(r, 0) || (r != r && x == x && y == y)
 }
 
+// badRows records the rows of one chunk where an operation gave no finite
+// result: their count, the first of them and its inputs.
+type badRows struct {
+	cnt, first int
+	x, y       float64
+}
+
+func (b *badRows) note(i int, x, y float64) {
+	if b.cnt == 0 {
+		b.first, b.x, b.y = i, x, y
+	}
+	b.cnt++
+}
+
+// mergeBad sums the chunks' counts and keeps the earliest row.
+func mergeBad(parts []badRows) badRows {
+	var m badRows
+	for _, b := range parts {
+		if b.cnt > 0 && m.cnt == 0 {
+			m = b
+		} else {
+			m.cnt += b.cnt
+		}
+	}
+	return m
+}
+
+// parallelMin is the number of rows from which row loops are split
+// across runtime.NumCPU() goroutines.
+const parallelMin = 1 << 15
+
+// forChunks calls f on consecutive ranges [lo, hi) covering [0, n), one
+// goroutine each when n is large, and returns the number of chunks; c
+// numbers the chunk from 0. It allocates per call, never per row.
+func forChunks(n int, parts []badRows, f func(c, lo, hi int)) int {
+	nc := 1
+	if n >= parallelMin {
+		nc = min(len(parts), n/(parallelMin/2))
+	}
+	if nc <= 1 {
+		f(0, 0, n)
+		return 1
+	}
+	size := (n + nc - 1) / nc
+	var wg sync.WaitGroup
+	for c := range nc {
+		lo, hi := c*size, min(n, (c+1)*size)
+		wg.Go(func() { f(c, lo, hi) })
+	}
+	wg.Wait()
+	return nc
+}
+
+// chunkState returns zeroed per-chunk records, one per CPU.
+func (ev *evaluator) chunkState() []badRows {
+	if ev.parts == nil {
+		ev.parts = make([]badRows, runtime.NumCPU())
+	}
+	clear(ev.parts)
+	return ev.parts
+}
+
 func (ev *evaluator) binary(n *node) ([]float64, bool, error) {
 	a, ao, err := ev.eval(n.x)
 	if err != nil {
@@ -399,6 +464,12 @@ func (ev *evaluator) binary(n *node) ([]float64, bool, error) {
 	b, bo, err := ev.eval(n.y)
 	if err != nil {
 		return nil, false, err
+	}
+	if n.op == tSlash {
+		if cnt, first := countRows(a, b, func(x, y float64) bool { return y == 0 && x == x }); cnt > 0 {
+			return nil, false, ev.errAt(n, fmt.Sprintf("%s: %s by zero (first: %s, where %s = 0); remove those rows from the input file or divide by a column that is never zero",
+				n, rowsVerb(cnt, "divides", "divide"), ev.where(first), n.y), ErrDivByZero)
+		}
 	}
 	var dst []float64
 	switch {
@@ -409,26 +480,31 @@ func (ev *evaluator) binary(n *node) ([]float64, bool, error) {
 	default:
 		dst = ev.get()
 	}
-	if n.op == tSlash {
-		if cnt, first := countRows(a, b, func(x, y float64) bool { return y == 0 && x == x }); cnt > 0 {
-			return nil, false, ev.errAt(n, fmt.Sprintf("%s: %s by zero (first: %s, where %s = 0); remove those rows from the input file or divide by a column that is never zero",
-				n, rowsVerb(cnt, "divides", "divide"), ev.where(first), n.y), ErrDivByZero)
-		}
+	parts := ev.chunkState()
+	nc := forChunks(len(dst), parts, func(c, lo, hi int) {
+		binaryRows(n.op, a[lo:hi], b[lo:hi], dst[lo:hi], lo, &parts[c])
+	})
+	if ao && bo {
+		ev.put(b)
 	}
-	cnt, first, fx, fy := 0, -1, 0.0, 0.0
-	note := func(i int, x, y float64) {
-		if cnt == 0 {
-			first, fx, fy = i, x, y
-		}
-		cnt++
+	if m := mergeBad(parts[:nc]); m.cnt > 0 {
+		return nil, false, ev.errAt(n, fmt.Sprintf("%s: %s no finite result (first: %s, where %s = %g and %s = %g)",
+			n, rowsVerb(m.cnt, "gives", "give"), ev.where(m.first), n.x, m.x, n.y, m.y), ErrDomain)
 	}
-	switch n.op {
+	return dst, true, nil
+}
+
+// binaryRows applies op row by row; dst may alias a or b. Rows with no
+// finite result from non-missing inputs are noted in bad, with row
+// numbers offset by off.
+func binaryRows(op tokKind, a, b, dst []float64, off int, bd *badRows) {
+	switch op {
 	case tPlus:
 		for i := range dst {
 			x, y := a[i], b[i]
 			r := x + y
 			if bad(r, x, y) {
-				note(i, x, y)
+				bd.note(off+i, x, y)
 			}
 			dst[i] = r
 		}
@@ -437,7 +513,7 @@ func (ev *evaluator) binary(n *node) ([]float64, bool, error) {
 			x, y := a[i], b[i]
 			r := x - y
 			if bad(r, x, y) {
-				note(i, x, y)
+				bd.note(off+i, x, y)
 			}
 			dst[i] = r
 		}
@@ -446,7 +522,7 @@ func (ev *evaluator) binary(n *node) ([]float64, bool, error) {
 			x, y := a[i], b[i]
 			r := x * y
 			if bad(r, x, y) {
-				note(i, x, y)
+				bd.note(off+i, x, y)
 			}
 			dst[i] = r
 		}
@@ -455,18 +531,18 @@ func (ev *evaluator) binary(n *node) ([]float64, bool, error) {
 			x, y := a[i], b[i]
 			r := x / y
 			if bad(r, x, y) {
-				note(i, x, y)
+				bd.note(off+i, x, y)
 			}
 			dst[i] = r
 		}
 	case tCaret:
 		for i := range dst {
 			x, y := a[i], b[i]
-			r := math.NaN()
+			r := math.NaN() // math.Pow(NaN, 0) is 1; missing must stay missing
 			if x == x && y == y {
 				r = math.Pow(x, y)
 				if bad(r, x, y) {
-					note(i, x, y)
+					bd.note(off+i, x, y)
 				}
 			}
 			dst[i] = r
@@ -496,16 +572,8 @@ func (ev *evaluator) binary(n *node) ([]float64, bool, error) {
 			}
 		}
 	default: // numeric comparison
-		cmpRows(n.op, a, b, dst)
+		cmpRows(op, a, b, dst)
 	}
-	if ao && bo {
-		ev.put(b)
-	}
-	if cnt > 0 {
-		return nil, false, ev.errAt(n, fmt.Sprintf("%s: %s no finite result (first: %s, where %s = %g and %s = %g)",
-			n, rowsVerb(cnt, "gives", "give"), ev.where(first), n.x, fx, n.y, fy), ErrDomain)
-	}
-	return dst, true, nil
 }
 
 // cmpRows writes 1, 0 or NaN (either side missing) for a numeric
@@ -631,33 +699,45 @@ func (ev *evaluator) call(n *node) ([]float64, bool, error) {
 				"(--where filters rows after --derive, so it cannot remove them first)",
 				n, rowsVerb(cnt, "has", "have"), ev.where(first), n.x, a[first]), ErrNonPositiveLog)
 		}
-		for i, x := range a {
-			dst[i] = math.Log(x)
-		}
 	case fnSqrt:
 		if cnt, first := countRows(a, nil, func(x, _ float64) bool { return x < 0 }); cnt > 0 {
 			return nil, false, ev.errAt(n, fmt.Sprintf("%s: %s a negative value under the square root (first: %s, where %s = %g); remove those rows from the input file or take the root of a column that is never negative",
 				n, rowsVerb(cnt, "has", "have"), ev.where(first), n.x, a[first]), ErrDomain)
 		}
-		for i, x := range a {
-			dst[i] = math.Sqrt(x)
-		}
-	case fnExp:
-		for i, x := range a {
-			dst[i] = math.Exp(x)
-		}
-	case fnAbs:
-		for i, x := range a {
-			dst[i] = math.Abs(x)
-		}
 	}
+	parts := ev.chunkState()
+	nc := forChunks(len(dst), parts, func(c, lo, hi int) {
+		callRows(n.fn, a[lo:hi], dst[lo:hi], lo, &parts[c])
+	})
 	// The domains of log and sqrt were checked above, so only an overflow
-	// (or an infinite input) is left; dst may alias a.
-	if cnt, first := countRows(dst, nil, func(r, _ float64) bool { return math.IsInf(r, 0) }); cnt > 0 {
-		return nil, false, ev.errAt(n, fmt.Sprintf("%s: %s no finite result (first: %s)",
-			n, rowsVerb(cnt, "gives", "give"), ev.where(first)), ErrDomain)
+	// (or an infinite input) is left.
+	if m := mergeBad(parts[:nc]); m.cnt > 0 {
+		return nil, false, ev.errAt(n, fmt.Sprintf("%s: %s no finite result (first: %s, where %s = %g)",
+			n, rowsVerb(m.cnt, "gives", "give"), ev.where(m.first), n.x, m.x), ErrDomain)
 	}
 	return dst, true, nil
+}
+
+// callRows applies a one-argument function row by row; dst may alias a.
+func callRows(fn funcID, a, dst []float64, off int, bd *badRows) {
+	var f func(float64) float64
+	switch fn {
+	case fnLog:
+		f = math.Log
+	case fnSqrt:
+		f = math.Sqrt
+	case fnExp:
+		f = math.Exp
+	case fnAbs:
+		f = math.Abs
+	}
+	for i, x := range a {
+		r := f(x)
+		if math.IsInf(r, 0) {
+			bd.note(off+i, x, x)
+		}
+		dst[i] = r
+	}
 }
 
 // countRows counts the rows where f(a[i], b[i]) holds (b may be nil) and

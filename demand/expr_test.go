@@ -694,7 +694,7 @@ func TestCigaretteTenYearDifference(t *testing.T) {
 
 func TestEvalNoPerRowAllocation(t *testing.T) {
 	// Vectorised evaluation: the number of allocations does not grow with
-	// the number of rows.
+	// the number of rows (large inputs add a fixed number of goroutines).
 	allocs := func(n int) float64 {
 		p := NewPanel("bench", n)
 		x, y := make([]float64, n), make([]float64, n)
@@ -710,9 +710,9 @@ func TestEvalNoPerRowAllocation(t *testing.T) {
 			}
 		})
 	}
-	small, large := allocs(10), allocs(100000)
-	if large != small {
-		t.Errorf("allocations grow with rows: %v for 10 rows, %v for 100000", small, large)
+	small, large, larger := allocs(10), allocs(100000), allocs(400000)
+	if large > small+200 || larger > large+10 {
+		t.Errorf("allocations grow with rows: %v for 10 rows, %v for 100000, %v for 400000", small, large, larger)
 	}
 }
 

@@ -303,7 +303,7 @@ func (m *Moments) names(idx []int) []string {
 // limlKappa returns the smallest root κ of det(WᵀM_{X₁}W - κ WᵀM_Z W) = 0.
 func limlKappa(m *Moments, md Model) (float64, error) {
 	w := append([]int{md.Y}, md.Endog...)
-	a := residualGram(m, w, md.Z())    // WᵀM_Z W
+	a := residualGram(m, w, md.Z())   // WᵀM_Z W
 	bm := residualGram(m, w, md.Exog) // WᵀM_{X₁} W
 	var ca mat.Cholesky
 	if !ca.Factorize(a) {

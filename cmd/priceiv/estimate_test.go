@@ -39,11 +39,11 @@ func TestCigaretteDemandCommand(t *testing.T) {
 		"--unit", "State", "--time", "Year", "--where", "Year == 1995", "--vcov", "hc1",
 	}
 	for i, test := range []struct {
-		args     []string
-		e, se    float64
-		firstF   float64
-		other    string
-		o, ose   float64
+		args   []string
+		e, se  float64
+		firstF float64
+		other  string
+		o, ose float64
 	}{
 		{[]string{"--outcome", "lnQ", "--endogenous", "lnP", "--instruments", "SalesTax"}, -1.08, 0.32, 0, "intercept", 9.72, 1.53},
 		{[]string{"--outcome", "lnQ", "--endogenous", "lnP", "--exogenous", "lnInc", "--instruments", "SalesTax"}, -1.14, 0.37, 0, "lnInc", 0.21, 0.31},
