@@ -195,14 +195,14 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 				return nil, p.unknown(strings.TrimSpace(part))
 			}
 		}
-		codes, levels, err := p.idsOf(f)
+		codes, levels, err := p.IDs(f)
 		if err != nil {
 			return nil, err
 		}
 		fes = append(fes, idc{f, codes, levels})
 	}
 	for _, c := range s.Cluster {
-		codes, levels, err := p.idsOf(c)
+		codes, levels, err := p.IDs(c)
 		if err != nil {
 			return nil, err
 		}
@@ -393,42 +393,6 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 	}
 	d.Moments = m
 	return d, nil
-}
-
-// idsOf returns id codes for a column, or for an interaction "a*b" of id
-// columns (each combination of levels is one level).
-func (p *Panel) idsOf(name string) ([]int32, []string, error) {
-	parts := strings.Split(name, "*")
-	codes, levels, err := p.IDs(strings.TrimSpace(parts[0]))
-	if err != nil {
-		return nil, nil, err
-	}
-	for _, part := range parts[1:] {
-		c2, l2, err := p.IDs(strings.TrimSpace(part))
-		if err != nil {
-			return nil, nil, err
-		}
-		type pair struct{ a, b int32 }
-		idx := map[pair]int32{}
-		out := make([]int32, len(codes))
-		var lv []string
-		for i := range codes {
-			if codes[i] < 0 || c2[i] < 0 {
-				out[i] = -1
-				continue
-			}
-			k := pair{codes[i], c2[i]}
-			v, ok := idx[k]
-			if !ok {
-				v = int32(len(lv))
-				idx[k] = v
-				lv = append(lv, levels[codes[i]]+"×"+l2[c2[i]])
-			}
-			out[i] = v
-		}
-		codes, levels = out, lv
-	}
-	return codes, levels, nil
 }
 
 func roleName(r Role) string {

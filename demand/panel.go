@@ -5,6 +5,7 @@ import (
 	"math"
 	"sort"
 	"strconv"
+	"strings"
 )
 
 // Panel is a table of columns read from one source (a CSV file, a Parquet
@@ -106,7 +107,14 @@ func (p *Panel) Line(i int) int {
 // fixed effect, cluster, unit or time). Text columns give their codes;
 // numeric columns are interned by value, levels sorted ascending. Missing
 // cells have code -1. The level labels are returned as strings.
+//
+// A name of the form "a*b" (any number of parts) is the interaction of id
+// columns: each combination of levels that occurs is one level, labelled
+// "a×b", in order of first appearance.
 func (p *Panel) IDs(name string) (codes []int32, levels []string, err error) {
+	if strings.Contains(name, "*") {
+		return p.interactionIDs(name)
+	}
 	if t, ok := p.Text[name]; ok {
 		return t.Codes, t.Levels, nil
 	}
@@ -198,4 +206,39 @@ func (p *Panel) Subset(keep []bool) *Panel {
 		q.AddText(name, c)
 	}
 	return q
+}
+
+// interactionIDs returns the codes of an interaction "a*b" of id columns.
+func (p *Panel) interactionIDs(name string) ([]int32, []string, error) {
+	parts := strings.Split(name, "*")
+	codes, levels, err := p.IDs(strings.TrimSpace(parts[0]))
+	if err != nil {
+		return nil, nil, err
+	}
+	for _, part := range parts[1:] {
+		c2, l2, err := p.IDs(strings.TrimSpace(part))
+		if err != nil {
+			return nil, nil, err
+		}
+		type pair struct{ a, b int32 }
+		idx := map[pair]int32{}
+		out := make([]int32, len(codes))
+		var lv []string
+		for i := range codes {
+			if codes[i] < 0 || c2[i] < 0 {
+				out[i] = -1
+				continue
+			}
+			k := pair{codes[i], c2[i]}
+			v, ok := idx[k]
+			if !ok {
+				v = int32(len(lv))
+				idx[k] = v
+				lv = append(lv, levels[codes[i]]+"×"+l2[c2[i]])
+			}
+			out[i] = v
+		}
+		codes, levels = out, lv
+	}
+	return codes, levels, nil
 }

@@ -36,11 +36,11 @@ flags override it.`,
       --shifters bean_index,freight_index --controls temperature \
       --fe product,store --cluster store
 
-  # ten-year differences of a state panel, kept for the last year
-  priceiv estimate states.csv --unit State --time Year \
-      --derive 'dq=diff(log(PackPC),10)' --derive 'dp=diff(log(AvgPrs/CPI),10)' \
-      --derive 'dtax=diff(Tax/CPI,10)' --where 'Year == 1995' \
-      --outcome dq --endogenous dp --instruments dtax --vcov hc1
+  # year-on-year changes within each store and product, from week 53 on
+  priceiv estimate coldbrew_panel.csv --unit 'product*store' --time week \
+      --derive 'dq=diff(log(units),52)' --derive 'dp=diff(log(price),52)' \
+      --derive 'dbean=diff(bean_index,52)' --where 'week > 52' \
+      --outcome dq --endogenous dp --instruments dbean --cluster store
 
   # the same options kept in a file, as JSON for another program
   priceiv estimate --spec model.yaml --format json --out result.json`,
