@@ -214,6 +214,7 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 	// is missing.
 	keep := make([]bool, p.N)
 	missing := make([]int, len(cols)+len(fes)+len(cls))
+	ids := append(append([]idc(nil), fes...), cls...)
 	for i := range keep {
 		keep[i] = true
 		for j, c := range cols {
@@ -226,7 +227,7 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 		if !keep[i] {
 			continue
 		}
-		for j, f := range append(append([]idc(nil), fes...), cls...) {
+		for j, f := range ids {
 			if f.codes[i] < 0 {
 				keep[i] = false
 				missing[len(cols)+j]++
