@@ -90,14 +90,14 @@ func (e *Expr) evalCond(p *Panel, keys PanelKeys) ([]float64, error) {
 // columns never replace source columns or earlier derived ones.
 func Derive(p *Panel, name string, e *Expr, keys PanelKeys) error {
 	if name == "" {
-		return fmt.Errorf("derive %s: the new column needs a name", e.src)
+		return fmt.Errorf("the derived column %s needs a name", e.src)
 	}
 	if p.Has(name) {
-		return fmt.Errorf("derive %s: %s already has a column named %q; choose another name for the derived column, such as %s_2", name, sourceName(p), name, name)
+		return fmt.Errorf("%s already has a column named %q; choose another name for the derived column, such as %s_2", sourceName(p), name, name)
 	}
 	v, err := e.EvalFloat(p, keys)
 	if err != nil {
-		return fmt.Errorf("derive %s: %w", name, err)
+		return err
 	}
 	p.AddNum(name, v)
 	return nil
@@ -109,7 +109,7 @@ func Derive(p *Panel, name string, e *Expr, keys PanelKeys) error {
 func Filter(p *Panel, e *Expr, keys PanelKeys) (*Panel, int, error) {
 	v, err := e.evalCond(p, keys)
 	if err != nil {
-		return nil, 0, fmt.Errorf("where: %w", err)
+		return nil, 0, err
 	}
 	keep := make([]bool, len(v))
 	kept, missing := 0, 0
@@ -122,8 +122,8 @@ func Filter(p *Panel, e *Expr, keys PanelKeys) (*Panel, int, error) {
 		}
 	}
 	if kept == 0 && p.N > 0 {
-		return nil, 0, fmt.Errorf("where %s: no row of %s meets the condition (%d false, %d missing): %w",
-			e.root, sourceName(p), p.N-missing, missing, ErrEmpty)
+		return nil, 0, fmt.Errorf("no row of %s meets the condition %s (%d false, %d missing): %w",
+			sourceName(p), e.root, p.N-missing, missing, ErrEmpty)
 	}
 	return p.Subset(keep), p.N - kept, nil
 }
@@ -264,7 +264,11 @@ func (ev *evaluator) needNumber(parent, x *node, k vkind) error {
 		if errors.As(err, &nn) {
 			msg := err.Error()
 			if nn.NumericCells == 0 || nn.Cell.Line == 0 {
-				msg += fmt.Sprintf("; in an expression, a text column can only be compared with == or != to a string, as in %s == \"...\"", colName(x.str))
+				example := "..."
+				if lv := ev.p.Text[x.str].Levels; len(lv) > 0 {
+					example = lv[0]
+				}
+				msg += fmt.Sprintf("; in an expression, a text column can only be compared with == or != to a string, as in %s == %s", colName(x.str), quoteStr(example))
 			}
 			return ev.errAt(x, msg, err)
 		}

@@ -47,13 +47,21 @@ func exprSameTree(a, b *node) bool {
 	return exprSameTree(a.x, b.x) && exprSameTree(a.y, b.y)
 }
 
-// exprTextCol interns values in order of first appearance; "" is missing.
+// exprTextCol interns values in order of first appearance ("" is missing)
+// and fills FirstNonNumber and NumericCells as a CSV reader does, row i
+// being on line i+2.
 func exprTextCol(vals ...string) *TextColumn {
 	c := &TextColumn{Codes: make([]int32, len(vals))}
+	numeric := 0
 	for i, v := range vals {
 		if v == "" {
 			c.Codes[i] = -1
 			continue
+		}
+		if _, err := strconv.ParseFloat(v, 64); err == nil {
+			numeric++
+		} else if c.FirstNonNumber.Line == 0 {
+			c.FirstNonNumber = CellRef{Line: i + 2, Text: v}
 		}
 		j := slices.Index(c.Levels, v)
 		if j < 0 {
@@ -61,6 +69,9 @@ func exprTextCol(vals ...string) *TextColumn {
 			c.Levels = append(c.Levels, v)
 		}
 		c.Codes[i] = int32(j)
+	}
+	if c.FirstNonNumber.Line > 0 {
+		c.NumericCells = numeric
 	}
 	return c
 }
@@ -311,6 +322,7 @@ func exprSalesPanel() *Panel {
 	p.AddText("product", exprTextCol("Nitro Can 250ml", "Oat Latte 330ml", "", "Nitro Can 250ml", "Black 1l"))
 	p.AddText("featured", exprTextCol("Black 1l", "Oat Latte 330ml", "Black 1l", "", "Black 1l"))
 	p.AddNum("unit price", []float64{1, 2, 3, 4, 5})
+	p.AddText("cost", exprTextCol("1.5", "2", "n/a", "3", ""))
 	return p
 }
 
@@ -353,6 +365,7 @@ func TestEvalFloat(t *testing.T) {
 		{`product != "Nitro Can 250ml"`, []float64{0, 1, exprNaN, 0, 1}},
 		{`product == featured`, []float64{0, 1, exprNaN, exprNaN, 1}},
 		{`product != featured`, []float64{1, 0, exprNaN, exprNaN, 0}},
+		{`cost == "n/a"`, []float64{0, 0, 1, 0, exprNaN}},
 		{`"a" == "a"`, []float64{1, 1, 1, 1, 1}},
 		{`"a" != "a"`, []float64{0, 0, 0, 0, 0}},
 		{`product == "Black 1l" || units > 3 && !(price == 2)`, []float64{0, 0, 1, exprNaN, 1}},
@@ -419,7 +432,9 @@ func TestEvalErrors(t *testing.T) {
 		{src: "log(unitz)", cause: ErrUnknownColumn, pos: 5,
 			want: []string{`no column named "unitz"`, "closest names: units"}},
 		{src: "product * 2", cause: ErrNotNumeric, pos: 1,
-			want: []string{`column "product" holds text`, `compared with == or != to a string, as in product == "..."`}},
+			want: []string{`column "product" holds text (for example "Nitro Can 250ml" on line 2)`, `compared with == or != to a string, as in product == "Nitro Can 250ml"`}},
+		{src: "price - 2 * cost", cause: ErrNotNumeric, pos: 13,
+			want: []string{`line 4, column "cost": cell is not a number: found "n/a"`}},
 		{src: `product == "Nitro Can 250 ml"`, pos: 12,
 			want: []string{`no row of column product holds the value "Nitro Can 250 ml"`, `closest values: "Nitro Can 250ml"`}},
 		{src: `price == "4"`, pos: 10, want: []string{`column price is numeric`}},
@@ -655,9 +670,8 @@ func TestLagDuplicateKey(t *testing.T) {
 
 func TestLagTimeLooksNumeric(t *testing.T) {
 	p := exprLagPanel(false)
-	c := exprTextCol("2", "1", "4", "3", "2", "3", "", "x5")
-	c.NumericCells, c.FirstNonNumber = 6, CellRef{Line: 9, Text: "x5"}
-	p.AddText("week", c)
+	// Line 9 (row 7) holds "x5" among numbers.
+	p.AddText("week", exprTextCol("2", "1", "4", "3", "2", "3", "", "x5"))
 	e, _ := ParseExpr("lag(x)")
 	_, err := e.EvalFloat(p, PanelKeys{Unit: "store", Time: "week"})
 	if !errors.Is(err, ErrNotNumeric) || !strings.Contains(err.Error(), "line 9") {
