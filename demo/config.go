@@ -25,7 +25,7 @@ func DefaultConfig() Config {
 
 // maxCells bounds Products*Stores*Weeks so that a mistyped size fails
 // with an error instead of exhausting memory.
-const maxCells = 50_000_000
+const maxCells = 10_000_000
 
 // validate reports the first problem with c, saying what was found and
 // how to fix it.

@@ -112,7 +112,7 @@ func Generate(cfg Config) (*Market, error) {
 					promo[i] = 1
 				}
 				eta := priceNoiseSD * rng.NormFloat64()
-				idx := shareBean*bean + shareFreight*freight + shareLabel*label + p.ingShare*ser.ingredient[i][t]
+				idx := shareBean*bean + shareFreight*freight + shareLabel*label + p.ingShare*ser.ingredient[i][r][t]
 				if p.bottled {
 					idx += shareBottle * bottle
 				}
@@ -153,7 +153,7 @@ func Generate(cfg Config) (*Market, error) {
 				c.freight = append(c.freight, freight)
 				c.bottle = append(c.bottle, bottle)
 				c.label = append(c.label, label)
-				c.ingredient = append(c.ingredient, ser.ingredient[i][t])
+				c.ingredient = append(c.ingredient, ser.ingredient[i][r][t])
 				c.ystar = append(c.ystar, ystar)
 				c.logP = append(c.logP, logP[i])
 				acc.add(i, p, mc[i], cross)

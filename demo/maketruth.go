@@ -1,5 +1,7 @@
 package demo
 
+import "math"
+
 // makeTruth assembles the truth of a generated market from the catalogue
 // and the per-product sums over recorded rows. The pooled target is
 // filled in separately.
@@ -23,8 +25,8 @@ func makeTruth(cfg Config, prods []product, stores []store, acc *accum, rows int
 			Note: "glass-bottle index; moves the cost of bottled products only (zero effect on cans)"},
 		{Column: ColLabel, VariesBy: "week", Valid: true, Strength: "weak",
 			Note: "label-printing index; a true but tiny cost share, so a weak instrument on its own"},
-		{Column: ColIngredient, VariesBy: "product x week", Valid: true, Strength: "product-specific",
-			Note: "each product's own ingredient contract index; moves only that product's cost, so it separates own from cross effects"},
+		{Column: ColIngredient, VariesBy: "product x region x week", Valid: true, Strength: "product-specific",
+			Note: "each product's own ingredient contract index (oat milk, vanilla, cocoa, caps); moves only that product's cost, so it separates own from cross effects"},
 		{Column: ColTemperature, VariesBy: "region x week", Valid: false, Strength: "strong",
 			Note: "local temperature moves demand directly (see demand.temperature); a control, never a shifter: used as one it fails over-identification tests"},
 	}
@@ -50,7 +52,7 @@ func makeTruth(cfg Config, prods []product, stores []store, acc *accum, rows int
 			shares[ColBottle] = shareBottle
 			otherShare -= shareBottle
 		}
-		shares["other"] = otherShare
+		shares["other"] = clean(otherShare)
 		stocking := 0
 		for _, st := range stores {
 			if st.stocked[i] {
@@ -58,7 +60,7 @@ func makeTruth(cfg Config, prods []product, stores []store, acc *accum, rows int
 			}
 		}
 		pt := ProductTruth{
-			Name: p.name, Bottled: p.bottled, OwnElasticity: p.own, LineMoveElasticity: line,
+			Name: p.name, Bottled: p.bottled, OwnElasticity: p.own, LineMoveElasticity: clean(line),
 			UnitCost: p.unitCost, MarkupFactor: mk, Lerner: -1 / p.own, ReferencePrice: p.unitCost * mk,
 			CostShares: shares, Rows: n, StoresStocking: stocking,
 		}
@@ -107,3 +109,7 @@ func makeTruth(cfg Config, prods []product, stores []store, acc *accum, rows int
 	}
 	return t
 }
+
+// clean rounds x to 12 decimals, removing the floating-point dust of sums
+// of decimal parameters (-1.9000000000000001 becomes -1.9).
+func clean(x float64) float64 { return math.Round(x*1e12) / 1e12 }

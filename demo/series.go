@@ -12,12 +12,12 @@ import (
 // generator uses the rounded values, so the recorded columns are exactly
 // the ones that moved costs and demand.
 type series struct {
-	bean       []float64   // [week], national green-bean cost index
-	bottle     []float64   // [week], national glass-bottle index
-	label      []float64   // [week], national label-printing index
-	freight    [][]float64 // [region][week], diesel freight index
-	temp       [][]float64 // [region][week], °C
-	ingredient [][]float64 // [product][week], product's own ingredient contract index
+	bean       []float64     // [week], national green-bean cost index
+	bottle     []float64     // [week], national glass-bottle index
+	label      []float64     // [week], national label-printing index
+	freight    [][]float64   // [region][week], diesel freight index
+	temp       [][]float64   // [region][week], °C
+	ingredient [][][]float64 // [product][region][week], product's own ingredient contract index
 }
 
 // ar1 returns n draws of a stationary AR(1) process with autocorrelation
@@ -48,9 +48,16 @@ func index(x []float64) []float64 {
 	return x
 }
 
-// labelSD is the week-to-week standard deviation of the label index in
-// index points.
-const labelSD = 5.0
+// Parameters of the index series: labelSD is the week-to-week standard
+// deviation of the label index in index points; the ingredient index of
+// a product in a region is a national AR(1) in logs plus a regional one.
+const (
+	labelSD        = 5.0
+	ingRho         = 0.7
+	ingNationalSD  = 0.14
+	ingRegionalRho = 0.5
+	ingRegionalSD  = 0.10
+)
 
 // makeSeries draws every cost index and temperature series.
 func makeSeries(rng *rand.Rand, nProducts, nRegions, nWeeks int) series {
@@ -80,9 +87,17 @@ func makeSeries(rng *rand.Rand, nProducts, nRegions, nWeeks int) series {
 		}
 		s.temp[r] = tr
 	}
-	s.ingredient = make([][]float64, nProducts)
+	s.ingredient = make([][][]float64, nProducts)
 	for i := range s.ingredient {
-		s.ingredient[i] = index(ar1(rng, nWeeks, 0.8, 0.10))
+		nat := ar1(rng, nWeeks, ingRho, ingNationalSD)
+		s.ingredient[i] = make([][]float64, nRegions)
+		for r := range s.ingredient[i] {
+			loc := ar1(rng, nWeeks, ingRegionalRho, ingRegionalSD)
+			for t := range loc {
+				loc[t] += nat[t]
+			}
+			s.ingredient[i][r] = index(loc)
+		}
 	}
 	s.label = makeLabel(rng, s, nWeeks)
 	return s
@@ -98,7 +113,9 @@ func makeSeries(rng *rand.Rand, nProducts, nRegions, nWeeks int) series {
 func makeLabel(rng *rand.Rand, s series, nWeeks int) []float64 {
 	z := ar1(rng, nWeeks, 0.3, 1)
 	regs := [][]float64{s.bean, s.bottle, meanOver(s.freight, nWeeks), meanOver(s.temp, nWeeks)}
-	regs = append(regs, s.ingredient...)
+	for _, ing := range s.ingredient {
+		regs = append(regs, meanOver(ing, nWeeks))
+	}
 	k := len(regs) + 1
 	if nWeeks > k+2 {
 		x := mat.NewDense(nWeeks, k, nil)

@@ -108,7 +108,7 @@ type PricingTruth struct {
 // ShifterTruth describes one candidate instrument column.
 type ShifterTruth struct {
 	Column string `json:"column"`
-	// VariesBy is "week", "region x week" or "product x week".
+	// VariesBy is "week", "region x week" or "product x region x week".
 	VariesBy string `json:"varies_by"`
 	// Valid is false when the column also moves demand directly.
 	Valid bool `json:"valid"`
