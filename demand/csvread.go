@@ -188,8 +188,11 @@ func (r *csvReader) readHeader() (pos, line int, err error) {
 	seen := make(map[string]int, len(r.names))
 	for j, name := range r.names {
 		if name == "" {
-			return 0, 0, &ParseError{File: r.source, Line: 1, Column: j + 1, Err: ErrHeader,
-				Hint: fmt.Sprintf("column %d has no name; give every column a name (or remove a trailing %q)", j+1, r.delim)}
+			hint := fmt.Sprintf("column %d has no name; give every column a name", j+1)
+			if j == len(r.names)-1 {
+				hint += fmt.Sprintf(", or remove the %q that ends the line", r.delim)
+			}
+			return 0, 0, &ParseError{File: r.source, Line: 1, Column: j + 1, Err: ErrHeader, Hint: hint}
 		}
 		if k, ok := seen[name]; ok {
 			return 0, 0, &ParseError{File: r.source, Line: 1, Column: j + 1, Name: name, Err: ErrHeader,
@@ -435,8 +438,13 @@ func newCSVWorker(r *csvReader, kinds []csvKind, lo, hi int) *csvWorker {
 
 func (w *csvWorker) run() {
 	r := w.r
-	s := &w.sc
-	nc := len(w.kinds)
+	// A local scanner keeps the per-record writes to its line off the
+	// cache lines of other workers.
+	sc := w.sc
+	s := &sc
+	defer func() { w.sc = sc }()
+	kinds := w.kinds
+	nc := len(kinds)
 	nan := math.NaN()
 	for i := w.lo; i < w.hi; i++ {
 		pos := r.starts[i]
@@ -456,7 +464,7 @@ func (w *csvWorker) run() {
 				w.err = r.tooMany(s, next, r.line(i), nc)
 				return
 			}
-			switch w.kinds[j] {
+			switch kinds[j] {
 			case csvNum:
 				if len(cell) == 0 {
 					r.num[j][i] = nan
@@ -465,7 +473,7 @@ func (w *csvWorker) run() {
 				v, err := strconv.ParseFloat(csvView(cell), 64)
 				if err != nil {
 					w.failed[j] = true
-					w.kinds[j] = csvSkip
+					kinds[j] = csvSkip
 					continue
 				}
 				r.num[j][i] = v
@@ -670,7 +678,7 @@ func (r *csvReader) quoteError(s *csvScanner, j int) *ParseError {
 
 func (r *csvReader) countError(line, found, want int) *ParseError {
 	return &ParseError{File: r.source, Line: line, Err: ErrFieldCount,
-		Hint: fmt.Sprintf("found %d fields, the header has %d; add the missing cells (an empty cell between two delimiters marks a missing value)", found, want)}
+		Hint: fmt.Sprintf("found %s, the header has %d; add the missing cells (an empty cell between two delimiters marks a missing value)", csvFields(found), want)}
 }
 
 // tooMany counts the fields of a record that has more than want, the
@@ -689,5 +697,12 @@ func (r *csvReader) tooMany(s *csvScanner, pos, line, want int) *ParseError {
 		pos = next
 	}
 	return &ParseError{File: r.source, Line: line, Err: ErrFieldCount,
-		Hint: fmt.Sprintf("found %d fields, the header has %d; enclose values that contain the delimiter %q in quotes, or remove the extra fields", found, want, r.delim)}
+		Hint: fmt.Sprintf("found %s, the header has %d; enclose values that contain the delimiter %q in quotes, or remove the extra fields", csvFields(found), want, r.delim)}
+}
+
+func csvFields(n int) string {
+	if n == 1 {
+		return "1 field"
+	}
+	return strconv.Itoa(n) + " fields"
 }

@@ -353,7 +353,7 @@ func TestReadCSVErrors(t *testing.T) {
 		{name: "wrong delimiter chosen", in: "a;b\n1;2\n", delim: ',',
 			want: ParseError{}, hint: ""}, // not an error: one column "a;b" (checked below)
 		{name: "field count after a quoted line break", in: "a,b\n\"x\ny\",1\n2\n",
-			want: ParseError{Line: 4, Err: ErrFieldCount}, hint: "found 1 fields, the header has 2"},
+			want: ParseError{Line: 4, Err: ErrFieldCount}, hint: "found 1 field, the header has 2"},
 		{name: "field count after a skipped blank line", in: "a,b\n1,2\n\n3\n",
 			want: ParseError{Line: 4, Err: ErrFieldCount}},
 		{name: "tab file read as tab", in: "a\tb\n1\t2\t3\n", delim: '\t',

@@ -42,8 +42,8 @@ type TextColumn struct {
 	Levels []string
 	// FirstNonNumber records the first cell (1-based line) whose text did
 	// not parse as a number, and the text found, so that using a mostly
-	// numeric column as a number gives a precise error. Line is 0 when no
-	// cell parsed as a number at all.
+	// numeric column as a number gives a precise error. When no cell
+	// parsed as a number, it is the column's first non-empty cell.
 	FirstNonNumber CellRef
 	// NumericCells counts the non-empty cells that did parse as numbers.
 	NumericCells int
