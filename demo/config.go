@@ -19,8 +19,15 @@ type Config struct {
 
 // DefaultConfig returns the demo market: six products, 100 stores,
 // 156 weeks (three years) and a fixed seed.
+//
+// The seed is one at which each product's 95% own-price band covers its
+// true elasticity, so that a new user's first run agrees with the truth.
+// That is a choice of draw, not a property of the estimator: at six
+// products about half of all seeds have one band (of twelve, per product
+// and pooled) that misses, as 95% bands should; tests/coverage_test.go
+// checks the coverage rate itself across many generated markets.
 func DefaultConfig() Config {
-	return Config{Products: 6, Stores: 100, Weeks: 156, Seed: 20261201}
+	return Config{Products: 6, Stores: 100, Weeks: 156, Seed: 20261202}
 }
 
 // maxCells bounds Products*Stores*Weeks so that a mistyped size fails

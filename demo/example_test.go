@@ -26,12 +26,12 @@ func ExampleGenerate() {
 	fmt.Printf("pooled target: %.2f\n", m.Truth.Pooled.OwnElasticity)
 	fmt.Println("OLS bias:", m.Truth.OLS.Direction)
 	// Output:
-	// rows: 86347
+	// rows: 83953
 	// products: 6
 	// Original Bottle 330ml: bottled true, own elasticity -2.4, unit cost 2.00
 	// Oat Latte Can 250ml: bottled false, own elasticity -2.6, unit cost 1.90
 	// shifters: bean_index, freight_index
 	// controls: temperature, promo
-	// pooled target: -2.15
+	// pooled target: -2.13
 	// OLS bias: toward zero
 }
