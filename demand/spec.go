@@ -44,6 +44,15 @@ type Spec struct {
 	// designs, and labels).
 	Product string `yaml:"product,omitempty" json:"product,omitempty"`
 
+	// By names a column (usually the product) to fit one regression per
+	// level of; Interact names a column to interact price and shifters
+	// with in one pooled regression; Cross asks for the cross-price
+	// elasticity matrix among the products (matched on Unit and Time).
+	// At most one of the three may be set.
+	By       string `yaml:"by,omitempty" json:"by,omitempty"`
+	Interact string `yaml:"interact,omitempty" json:"interact,omitempty"`
+	Cross    bool   `yaml:"cross,omitempty" json:"cross,omitempty"`
+
 	// General form.
 	Outcome     string   `yaml:"outcome,omitempty" json:"outcome,omitempty"`
 	Endogenous  []string `yaml:"endogenous,omitempty" json:"endogenous,omitempty"`
@@ -164,6 +173,18 @@ func (s *Spec) Check() error {
 	case "", "log-log", "semi-log", "linear":
 	default:
 		return fmt.Errorf("%w: unknown form %q: choose log-log, semi-log or linear", ErrSpec, s.Form)
+	}
+	n := 0
+	for _, set := range []bool{s.By != "", s.Interact != "", s.Cross} {
+		if set {
+			n++
+		}
+	}
+	if n > 1 {
+		return fmt.Errorf("%w: by, interact and cross are different designs: choose one", ErrSpec)
+	}
+	if (s.By != "" || s.Interact != "" || s.Cross) && !s.DemandForm() {
+		return fmt.Errorf("%w: by, interact and cross need the demand form (--quantity, --price, --shifters)", ErrSpec)
 	}
 	if len(s.Cluster) > 2 {
 		return fmt.Errorf("%w: at most two cluster columns (two-way clustering); got %d", ErrSpec, len(s.Cluster))

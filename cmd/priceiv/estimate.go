@@ -54,6 +54,20 @@ flags override it.`,
 			if err != nil {
 				return err
 			}
+			switch {
+			case spec.By != "" || spec.Interact != "":
+				t, err := runProducts(panel, spec)
+				if err != nil {
+					return err
+				}
+				return emit(cmd, out, func(w io.Writer) error { return elasticity.WriteProductTable(w, t, format) })
+			case spec.Cross:
+				c, err := runCross(panel, spec)
+				if err != nil {
+					return err
+				}
+				return emit(cmd, out, func(w io.Writer) error { return elasticity.WriteCrossPrice(w, c, format) })
+			}
 			res, err := runEstimate(panel, spec)
 			if err != nil {
 				return err
@@ -66,6 +80,7 @@ flags override it.`,
 	cmd.Flags().StringVar(&format, "format", "text", "output format: text, json, csv or markdown")
 	cmd.Flags().StringVar(&out, "out", "", "write the output to this file (written only when the run succeeds)")
 	cmd.MarkFlagsMutuallyExclusive("demo", "data")
+	cmd.MarkFlagsMutuallyExclusive("by", "interact", "cross")
 	return cmd
 }
 
@@ -76,7 +91,14 @@ func loadInputs(cmd *cobra.Command, mf *modelFlags, args []string, useDemo bool)
 		if err != nil {
 			return nil, nil, err
 		}
-		spec, err := mf.resolve(cmd, demoSpec(m))
+		base := demoSpec(m)
+		switch {
+		case cmd.Flags().Changed("cross"):
+			base = demoCrossSpec(m)
+		case cmd.Flags().Changed("by"), cmd.Flags().Changed("interact"):
+			base = demoProductSpec(m)
+		}
+		spec, err := mf.resolve(cmd, base)
 		if err != nil {
 			return nil, nil, err
 		}
@@ -115,6 +137,69 @@ func demoSpec(m *demo.Market) demand.Spec {
 		s.FE = append(s.FE, strings.Join(fe, "*"))
 	}
 	return s
+}
+
+// demoProductSpec is the demo's per-product own-price model: each
+// product's price instrumented by its own ingredient cost index, with the
+// line-wide cost indices as controls (they move every product's price, so
+// a single-product equation must hold them fixed).
+func demoProductSpec(m *demo.Market) demand.Spec {
+	s := demoSpec(m)
+	s.Shifters = []string{demo.ColIngredient}
+	s.Controls = []string{demo.ColTemperature, demo.ColPromo, demo.ColBean, demo.ColFreight, demo.ColBottle}
+	s.FE = []string{demo.ColStore}
+	return s
+}
+
+// demoCrossSpec is the demo's cross-price model (Truth.CrossPriceModel),
+// matched on store and week.
+func demoCrossSpec(m *demo.Market) demand.Spec {
+	cm := m.Truth.CrossPriceModel
+	s := demand.Spec{
+		Data: "demo", Quantity: cm.Quantity, Price: cm.Price, Form: cm.Form, Product: demo.ColProduct,
+		Shifters: cm.Shifters, Controls: cm.Controls, Cluster: cm.Cluster,
+		Unit: demo.ColStore, Time: demo.ColWeek,
+	}
+	for _, fe := range cm.FixedEffects {
+		s.FE = append(s.FE, strings.Join(fe, "*"))
+	}
+	return s
+}
+
+// runProducts fits per-product elasticities (--by or --interact).
+func runProducts(panel *demand.Panel, spec *demand.Spec) (*demand.ProductTable, error) {
+	p, drops, err := demand.Prepare(panel, spec)
+	if err != nil {
+		return nil, err
+	}
+	s := *spec
+	var t *demand.ProductTable
+	if spec.By != "" {
+		s.Product = spec.By
+		t, err = demand.EstimateByProduct(p, &s, 0)
+	} else {
+		s.Product = spec.Interact
+		t, err = demand.EstimateInteracted(p, &s, 0)
+	}
+	if err != nil {
+		return nil, err
+	}
+	t.Dropped = append(drops, t.Dropped...)
+	elasticity.FillRobust(t)
+	return t, nil
+}
+
+// runCross fits the cross-price elasticity matrix (--cross).
+func runCross(panel *demand.Panel, spec *demand.Spec) (*demand.CrossPrice, error) {
+	p, _, err := demand.Prepare(panel, spec)
+	if err != nil {
+		return nil, err
+	}
+	s := *spec
+	if s.Product == "" {
+		s.Product = "product"
+	}
+	return demand.EstimateCross(p, &s, 0)
 }
 
 // runEstimate prepares the panel, builds the design and fits it.

@@ -32,6 +32,9 @@ func (m *modelFlags) register(fs *pflag.FlagSet) {
 	fs.StringSliceVar(&s.Controls, "controls", nil, "demand form: exogenous controls")
 	fs.StringVar(&s.Form, "form", "", "demand form: log-log (default), semi-log or linear")
 	fs.StringVar(&s.Product, "product", "", "product column")
+	fs.StringVar(&s.By, "by", "", "one regression per level of this column (e.g. product): a table of own-price elasticities")
+	fs.StringVar(&s.Interact, "interact", "", "one pooled regression with price and shifters interacted with this column, plus a test of equal elasticities")
+	fs.BoolVar(&s.Cross, "cross", false, "cross-price elasticity matrix among the products, matched on --unit and --time")
 	fs.StringVar(&s.Outcome, "outcome", "", "general form: outcome column")
 	fs.StringSliceVar(&s.Endogenous, "endogenous", nil, "general form: endogenous regressors")
 	fs.StringSliceVar(&s.Exogenous, "exogenous", nil, "general form: exogenous regressors")
@@ -59,6 +62,9 @@ var flagField = map[string]func(dst, src *demand.Spec){
 	"controls":    func(d, s *demand.Spec) { d.Controls = s.Controls },
 	"form":        func(d, s *demand.Spec) { d.Form = s.Form },
 	"product":     func(d, s *demand.Spec) { d.Product = s.Product },
+	"by":          func(d, s *demand.Spec) { d.By = s.By },
+	"interact":    func(d, s *demand.Spec) { d.Interact = s.Interact },
+	"cross":       func(d, s *demand.Spec) { d.Cross = s.Cross },
 	"outcome":     func(d, s *demand.Spec) { d.Outcome = s.Outcome },
 	"endogenous":  func(d, s *demand.Spec) { d.Endogenous = s.Endogenous },
 	"exogenous":   func(d, s *demand.Spec) { d.Exogenous = s.Exogenous },
