@@ -63,6 +63,12 @@ type ProductElasticity struct {
 	Failed bool `json:"failed"`
 	// Warnings lists what a reader should know before using the number.
 	Warnings []string `json:"warnings"`
+	// Where the product's prices and units sit in the data (rows used).
+	PriceStats
+	// Bootstrap is the cluster-bootstrap percentile band, when asked for.
+	Bootstrap *BootstrapBand `json:"bootstrap,omitempty"`
+	// BootstrapDraws are the replicate draws of the elasticity.
+	BootstrapDraws []float64 `json:"bootstrap_draws,omitempty"`
 }
 
 // EqualityTest is the Wald test that all products share one elasticity.
@@ -303,7 +309,7 @@ func fitOneProduct(sub *Panel, s *Spec, name string, workers int) (ProductElasti
 	j := fit.Index(d.Names[d.Model.Endog[0]])
 	row := ProductElasticity{
 		Product: name, N: d.N, OwnPrice: e.OwnPrice, StdError: e.StdError, CILow: e.CILow, CIHigh: e.CIHigh,
-		Band: "wald", Level: d.Level, At: e.At, Warnings: []string{},
+		Band: "wald", Level: d.Level, At: e.At, Warnings: []string{}, PriceStats: d.PriceStats,
 	}
 	if len(fit.Vcov.Clusters) > 0 {
 		row.Clusters = minInt(fit.Vcov.Clusters)

@@ -51,6 +51,9 @@ type Design struct {
 	// Level means of quantity and price over the rows used (demand form),
 	// where non-log forms evaluate the elasticity.
 	MeanQuantity, MeanPrice float64
+	// PriceStats are the level price and quantity over the rows used
+	// (demand form).
+	PriceStats PriceStats
 	// ClusterNames are the cluster columns.
 	ClusterNames []string
 	// Panel is the prepared panel (after derive and filter).
@@ -311,7 +314,9 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 		q, _ := p.Float(s.Quantity)
 		pr, _ := p.Float(s.Price)
 		d.MeanQuantity = mean(gather(q))
-		d.MeanPrice = mean(gather(pr))
+		gp := gather(pr)
+		d.MeanPrice = mean(gp)
+		d.PriceStats = PriceStats{MeanPrice: d.MeanPrice, MeanQuantity: d.MeanQuantity, PriceMin: minOf(gp), PriceMax: maxOf(gp)}
 	}
 	// Order columns: outcome, endogenous, intercept (without fixed
 	// effects), exogenous, instruments.
@@ -463,6 +468,22 @@ func ones(n int) []float64 {
 		x[i] = 1
 	}
 	return x
+}
+
+func minOf(x []float64) float64 {
+	m := math.Inf(1)
+	for _, v := range x {
+		m = math.Min(m, v)
+	}
+	return m
+}
+
+func maxOf(x []float64) float64 {
+	m := math.Inf(-1)
+	for _, v := range x {
+		m = math.Max(m, v)
+	}
+	return m
 }
 
 func mean(x []float64) float64 {

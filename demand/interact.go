@@ -171,12 +171,18 @@ func EstimateInteracted(p *Panel, s *Spec, workers int) (*ProductTable, error) {
 	count := make([]int, nP)
 	sumP := make([]float64, nP)
 	sumQ := make([]float64, nP)
+	minP, maxP := make([]float64, nP), make([]float64, nP)
+	for k := range minP {
+		minP[k], maxP[k] = math.Inf(1), math.Inf(-1)
+	}
 	rawP, rawQ := sub.Num[s.Price], sub.Num[s.Quantity]
 	for _, i := range d.Rows {
 		k := slot[codes[i]]
 		count[k]++
 		sumP[k] += rawP[i]
 		sumQ[k] += rawQ[i]
+		minP[k] = math.Min(minP[k], rawP[i])
+		maxP[k] = math.Max(maxP[k], rawP[i])
 	}
 	crit := ivcore.Critical(d.Level, fit.Vcov.DF)
 	nz := len(s.Shifters)
@@ -194,6 +200,7 @@ func EstimateInteracted(p *Panel, s *Spec, workers int) (*ProductTable, error) {
 			continue
 		}
 		mp, mq := sumP[k]/float64(count[k]), sumQ[k]/float64(count[k])
+		row.PriceStats = PriceStats{MeanPrice: mp, MeanQuantity: mq, PriceMin: minP[k], PriceMax: maxP[k]}
 		sc := elasticityScale(form, mp, mq)
 		scales[k] = sc
 		switch form {

@@ -39,6 +39,32 @@ type Elasticity struct {
 	At string `json:"at"`
 	// N is the number of observations behind the estimate.
 	N int `json:"n"`
+	// Where the product's prices and units sit in the data (rows used).
+	PriceStats
+	// Bootstrap is the cluster-bootstrap percentile band, when asked for.
+	Bootstrap *BootstrapBand `json:"bootstrap,omitempty"`
+	// BootstrapDraws are the replicate draws of the elasticity.
+	BootstrapDraws []float64 `json:"bootstrap_draws,omitempty"`
+}
+
+// PriceStats describes a product's price and quantity over the rows used.
+type PriceStats struct {
+	MeanPrice    float64 `json:"mean_price"`
+	MeanQuantity float64 `json:"mean_quantity"`
+	PriceMin     float64 `json:"price_min"`
+	PriceMax     float64 `json:"price_max"`
+}
+
+// BootstrapBand is a percentile band from a cluster bootstrap.
+type BootstrapBand struct {
+	Low        float64 `json:"ci_low"`
+	High       float64 `json:"ci_high"`
+	StdError   float64 `json:"std_error"`
+	Replicates int     `json:"replicates"`
+	Failed     int     `json:"failed"`
+	Clusters   int     `json:"clusters"`
+	Seed       uint64  `json:"seed"`
+	Level      float64 `json:"level"`
 }
 
 // Absorbed describes one absorbed fixed effect.
@@ -190,7 +216,7 @@ func (d *Design) Summarize(fit *ivcore.Fit, fs []ivcore.FirstStage) *Result {
 	if d.Form != "" {
 		j := fit.Index(d.Names[d.Model.Endog[0]])
 		b, se := fit.Coef[j], fit.SE(j)
-		e := Elasticity{Product: "all", N: d.N, At: "everywhere (constant elasticity)"}
+		e := Elasticity{Product: "all", N: d.N, At: "everywhere (constant elasticity)", PriceStats: d.PriceStats}
 		var scale float64
 		switch d.Form {
 		case "log-log":
@@ -210,4 +236,11 @@ func (d *Design) Summarize(fit *ivcore.Fit, fs []ivcore.FirstStage) *Result {
 		r.Elasticity = []Elasticity{e}
 	}
 	return r
+}
+
+// ElasticityScale is the factor that turns the price coefficient into the
+// elasticity: 1 for log-log, the mean price for semi-log, mean price over
+// mean quantity for linear demand.
+func (d *Design) ElasticityScale() float64 {
+	return elasticityScale(d.Form, d.MeanPrice, d.MeanQuantity)
 }

@@ -71,6 +71,10 @@ func writeEstimateText(w io.Writer, r *demand.Result) error {
 		for _, e := range r.Elasticity {
 			fmt.Fprintf(&b, "  %-14s %7.3f   %s band %.3f to %.3f   (s.e. %.3f, %d rows)\n", e.Product, e.OwnPrice, lv, e.CILow, e.CIHigh, e.StdError, e.N)
 			fmt.Fprintf(&b, "  → %s.\n", describeElasticity(e.OwnPrice, e.CILow, e.CIHigh))
+			if bb := e.Bootstrap; bb != nil {
+				fmt.Fprintf(&b, "  cluster bootstrap: %s band %.3f to %.3f (s.e. %.3f; %d replicates over %d clusters, seed %d)\n",
+					lv, bb.Low, bb.High, bb.StdError, bb.Replicates, bb.Clusters, bb.Seed)
+			}
 			if !strings.HasPrefix(e.At, "everywhere") {
 				fmt.Fprintf(&b, "    (%s form: the elasticity is evaluated at the %s)\n", r.Form, e.At)
 			}

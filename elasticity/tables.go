@@ -276,6 +276,18 @@ func writeProductText(w io.Writer, t *demand.ProductTable) error {
 		fmt.Fprintf(&b, "  %3d  %-*s  %7d  %10s  %-20s  %-22s  %9s  %7s\n", i+1, width, e.Product, e.N, tblNum(e.OwnPrice, 3),
 			band, FormatRobustBand(e.AR), tblNum(e.FirstStageF, 1), tblEffF(e))
 	}
+	booted := false
+	for i, e := range t.Elasticities {
+		bb := e.Bootstrap
+		if bb == nil {
+			continue
+		}
+		if !booted {
+			fmt.Fprintf(&b, "\nCLUSTER BOOTSTRAP (%d replicates over %d clusters, seed %d, percentile bands)\n", bb.Replicates, bb.Clusters, bb.Seed)
+			booted = true
+		}
+		fmt.Fprintf(&b, "  %3d  %-*s  %s to %s   (bootstrap s.e. %s)\n", i+1, width, e.Product, tblNum(bb.Low, 3), tblNum(bb.High, 3), tblNum(bb.StdError, 3))
+	}
 	warned := false
 	for i, e := range t.Elasticities {
 		for _, msg := range e.Warnings {
