@@ -137,9 +137,9 @@ func writeEstimateText(w io.Writer, r *demand.Result) error {
 	for _, n := range r.Notes {
 		fmt.Fprintf(&b, "\nNOTE  %s\n", n)
 	}
-	if len(r.Elasticity) > 0 {
+	if len(r.Cautions) > 0 {
 		b.WriteString("\nREAD WITH CARE\n")
-		for _, c := range Cautions {
+		for _, c := range r.Cautions {
 			fmt.Fprintf(&b, "  · %s\n", c)
 		}
 	}
@@ -189,8 +189,8 @@ func writeEstimateMarkdown(w io.Writer, r *demand.Result) error {
 		fmt.Fprintf(&b, " Dropped %d (%s %s).", d.Rows, d.Reason, mdEscape(d.Column))
 	}
 	b.WriteString("\n")
-	if len(r.Elasticity) > 0 {
-		b.WriteString("\n> " + strings.Join(Cautions, "\n>\n> ") + "\n")
+	if len(r.Cautions) > 0 {
+		b.WriteString("\n> " + strings.Join(r.Cautions, "\n>\n> ") + "\n")
 	}
 	_, err := io.WriteString(w, b.String())
 	return err

@@ -19,6 +19,7 @@ func newEstimateCmd() *cobra.Command {
 	var useDemo bool
 	var boot int
 	var seed uint64
+	var pricesFile string
 	cmd := &cobra.Command{
 		Use:   "estimate [PANEL.csv] [flags]",
 		Short: "Estimate a demand (or any IV) model and print elasticities with bands",
@@ -70,13 +71,36 @@ flags override it.`,
 						return err
 					}
 				}
-				return emit(cmd, out, func(w io.Writer) error { return elasticity.WriteProductTable(w, t, format) })
-			case spec.Cross:
-				c, err := runCross(panel, spec)
+				prices, err := readPrices(pricesFile, t.Elasticities)
 				if err != nil {
 					return err
 				}
-				return emit(cmd, out, func(w io.Writer) error { return elasticity.WriteCrossPrice(w, c, format) })
+				rep := elasticity.TableMarkups(t, prices)
+				return emit(cmd, out, func(w io.Writer) error {
+					return elasticity.WriteCombined(w, format,
+						func(w io.Writer, f string) error { return elasticity.WriteProductTable(w, t, f) },
+						func(w io.Writer, f string) error { return elasticity.WritePricing(w, rep, f) })
+				})
+			case spec.Cross:
+				c, stats, err := runCross(panel, spec)
+				if err != nil {
+					return err
+				}
+				var prices []elasticity.PriceRow
+				if pricesFile != "" {
+					if prices, err = elasticity.ReadPricesFile(pricesFile, c.Products); err != nil {
+						return err
+					}
+				}
+				rep := elasticity.CrossMarkups(c, stats, prices)
+				return emit(cmd, out, func(w io.Writer) error {
+					return elasticity.WriteCombined(w, format,
+						func(w io.Writer, f string) error { return elasticity.WriteCrossPrice(w, c, f) },
+						func(w io.Writer, f string) error { return elasticity.WritePricing(w, rep, f) })
+				})
+			}
+			if pricesFile != "" {
+				return fmt.Errorf("--prices holds prices per product: use it with --by, --interact or --cross")
 			}
 			res, d, fit, err := runEstimate(panel, spec)
 			if err != nil {
@@ -90,13 +114,23 @@ flags override it.`,
 					return err
 				}
 			}
-			return emit(cmd, out, func(w io.Writer) error { return elasticity.WriteEstimate(w, res, format) })
+			if len(res.Elasticity) == 0 {
+				return emit(cmd, out, func(w io.Writer) error { return elasticity.WriteEstimate(w, res, format) })
+			}
+			rep := elasticity.PooledMarkups(res, nil)
+			res.Cautions = nil // the margins section closes with them
+			return emit(cmd, out, func(w io.Writer) error {
+				return elasticity.WriteCombined(w, format,
+					func(w io.Writer, f string) error { return elasticity.WriteEstimate(w, res, f) },
+					func(w io.Writer, f string) error { return elasticity.WritePricing(w, rep, f) })
+			})
 		},
 	}
 	mf.register(cmd.Flags())
 	cmd.Flags().BoolVar(&useDemo, "demo", false, "run on the built-in cold-brew market (generated in memory, fixed seed)")
 	cmd.Flags().IntVar(&boot, "bootstrap", 0, "cluster-bootstrap replicates for percentile bands (0: off; 999 is usual)")
 	cmd.Flags().Uint64Var(&seed, "seed", 1, "seed of the bootstrap draws (same seed, same bands on any number of cores)")
+	cmd.Flags().StringVar(&pricesFile, "prices", "", "CSV of current prices per product (product, price, optional unit_cost, quantity, owner) for margins")
 	cmd.Flags().StringVar(&format, "format", "text", "output format: text, json, csv or markdown")
 	cmd.Flags().StringVar(&out, "out", "", "write the output to this file (written only when the run succeeds)")
 	cmd.MarkFlagsMutuallyExclusive("demo", "data")
@@ -209,17 +243,35 @@ func runProducts(panel *demand.Panel, spec *demand.Spec) (*demand.ProductTable, 
 	return t, nil
 }
 
-// runCross fits the cross-price elasticity matrix (--cross).
-func runCross(panel *demand.Panel, spec *demand.Spec) (*demand.CrossPrice, error) {
+// runCross fits the cross-price elasticity matrix (--cross) and returns
+// each product's price and quantity statistics for margins.
+func runCross(panel *demand.Panel, spec *demand.Spec) (*demand.CrossPrice, map[string]demand.PriceStats, error) {
 	p, _, err := demand.Prepare(panel, spec)
 	if err != nil {
-		return nil, err
+		return nil, nil, err
 	}
 	s := *spec
 	if s.Product == "" {
 		s.Product = "product"
 	}
-	return demand.EstimateCross(p, &s, 0)
+	c, err := demand.EstimateCross(p, &s, 0)
+	if err != nil {
+		return nil, nil, err
+	}
+	stats, err := elasticity.ProductStats(p, s.Product, s.Price, s.Quantity)
+	return c, stats, err
+}
+
+// readPrices reads a --prices file for the products of a table.
+func readPrices(path string, rows []demand.ProductElasticity) ([]elasticity.PriceRow, error) {
+	if path == "" {
+		return nil, nil
+	}
+	var products []string
+	for _, r := range rows {
+		products = append(products, r.Product)
+	}
+	return elasticity.ReadPricesFile(path, products)
 }
 
 // runEstimate prepares the panel, builds the design and fits it.

@@ -1,0 +1,76 @@
+package main
+
+import (
+	"math"
+	"strings"
+	"testing"
+)
+
+// TestEstimateMarginsAndBootstrap checks the margins section of the pooled
+// demo run against the inverse-elasticity rule (L = -1/e, common practice),
+// and that the cluster bootstrap is reproducible for a seed and refuses
+// too few replicates.
+func TestEstimateMarginsAndBootstrap(t *testing.T) {
+	m := runJSON(t, "estimate", "--demo", "--bootstrap", "60", "--seed", "5")
+	el := m["elasticities"].([]any)[0].(map[string]any)
+	e := el["own_price"].(float64)
+	mk := m["markups"].(map[string]any)["products"].([]any)[0].(map[string]any)
+	lerner := mk["lerner"].(map[string]any)["estimate"].(float64)
+	if math.Abs(lerner+1/e) > 1e-12 {
+		t.Errorf("Lerner %.6f, want -1/e = %.6f", lerner, -1/e)
+	}
+	bb := el["bootstrap"].(map[string]any)
+	if bb["replicates"].(float64) != 60 || bb["seed"].(float64) != 5 {
+		t.Errorf("bootstrap block %v", bb)
+	}
+	again := runJSON(t, "estimate", "--demo", "--bootstrap", "60", "--seed", "5")
+	bb2 := again["elasticities"].([]any)[0].(map[string]any)["bootstrap"].(map[string]any)
+	if bb["ci_low"] != bb2["ci_low"] || bb["ci_high"] != bb2["ci_high"] {
+		t.Errorf("same seed, different bands: %v vs %v", bb, bb2)
+	}
+	_, _, err := run(t, "estimate", "--demo", "--bootstrap", "20")
+	if err == nil || !strings.Contains(err.Error(), "at least 50") {
+		t.Errorf("--bootstrap 20: %v", err)
+	}
+	path := writeFile(t, "panel.csv", smallPanel)
+	_, _, err = run(t, "estimate", path, "--quantity", "units", "--price", "price", "--shifters", "cost", "--bootstrap", "99")
+	if err == nil || !strings.Contains(err.Error(), "--cluster") {
+		t.Errorf("bootstrap without clusters: %v", err)
+	}
+}
+
+// TestEstimateByProductPrices checks --by with a prices file: a product
+// missing from the file is named, and unit costs give a profit-maximising
+// price p* = c·e/(1+e) (inverse-elasticity rule, common practice).
+func TestEstimateByProductPrices(t *testing.T) {
+	partial := writeFile(t, "prices.csv", "product,price,unit_cost\nOriginal Bottle 330ml,3.49,2.00\n")
+	_, _, err := run(t, "estimate", "--demo", "--by", "product", "--prices", partial)
+	if err == nil || !strings.Contains(err.Error(), `"Mocha Can 250ml"`) {
+		t.Errorf("missing products not named: %v", err)
+	}
+	prices := writeFile(t, "prices.csv", `product,price,unit_cost
+Original Bottle 330ml,3.49,2.00
+Oat Latte Can 250ml,2.99,1.90
+Black Nitro Can 250ml,2.89,1.60
+Reserve Bottle 500ml,6.99,3.10
+Vanilla Bottle 330ml,3.49,2.20
+Mocha Can 250ml,2.69,1.80
+`)
+	m := runJSON(t, "estimate", "--demo", "--by", "product", "--prices", prices)
+	found := false
+	for _, x := range m["markups"].(map[string]any)["products"].([]any) {
+		mk := x.(map[string]any)
+		if mk["product"] != "Original Bottle 330ml" {
+			continue
+		}
+		found = true
+		e := mk["elasticity"].(map[string]any)["estimate"].(float64)
+		pstar := mk["profit_max_price"].(map[string]any)["estimate"].(float64)
+		if math.Abs(pstar-2.00*e/(1+e)) > 1e-9 || mk["price"].(float64) != 3.49 {
+			t.Errorf("p* = %.6f, want %.6f at price %v", pstar, 2*e/(1+e), mk["price"])
+		}
+	}
+	if !found {
+		t.Fatal("no margin row for Original Bottle 330ml")
+	}
+}
