@@ -41,9 +41,10 @@ func gmmData(seed uint64, n, G int) (cols [][]float64, names []string, md Model,
 }
 
 // explicitGMM computes two-step GMM and J with plain gonum matrix algebra on
-// the explicit n×k data matrices. group is nil for HC1 (every row its own
-// unit) or the cluster code of each row.
-func explicitGMM(cols [][]float64, md Model, group []int32, G int) (b []float64, j float64) {
+// the explicit n×k data matrices. ways is empty for HC1 (every row its own
+// unit); otherwise S sums the outer products of cluster sums of each way,
+// with the third way (the intersection of two) subtracted.
+func explicitGMM(cols [][]float64, md Model, ways []ClusterDim) (b []float64, j float64) {
 	n := len(cols[0])
 	build := func(idx []int) *mat.Dense {
 		d := mat.NewDense(n, len(idx), nil)
@@ -80,19 +81,27 @@ func explicitGMM(cols [][]float64, md Model, group []int32, G int) (b []float64,
 	u.Sub(Y, &xb)
 	kz := len(md.Z())
 	S := mat.NewDense(kz, kz, nil)
-	units := n
-	unit := func(i int) int { return i }
-	if group != nil {
-		units = G
-		unit = func(i int) int { return int(group[i]) }
+	if len(ways) == 0 {
+		ways = []ClusterDim{{G: n}}
 	}
-	sums := mat.NewDense(units, kz, nil)
-	for i := 0; i < n; i++ {
-		for c := 0; c < kz; c++ {
-			sums.Set(unit(i), c, sums.At(unit(i), c)+Z.At(i, c)*u.At(i, 0))
+	for w, way := range ways {
+		sums := mat.NewDense(way.G, kz, nil)
+		for i := 0; i < n; i++ {
+			g := i
+			if way.Codes != nil {
+				g = int(way.Codes[i])
+			}
+			for c := 0; c < kz; c++ {
+				sums.Set(g, c, sums.At(g, c)+Z.At(i, c)*u.At(i, 0))
+			}
 		}
+		var sw mat.Dense
+		sw.Mul(sums.T(), sums)
+		if w == 2 {
+			sw.Scale(-1, &sw)
+		}
+		S.Add(S, &sw)
 	}
-	S.Mul(sums.T(), sums)
 	var Si mat.Dense
 	if err := Si.Inverse(S); err != nil {
 		panic(err)
@@ -110,30 +119,43 @@ func explicitGMM(cols [][]float64, md Model, group []int32, G int) (b []float64,
 // TestTwoStepGMMExplicit checks two-step GMM estimates and Hansen's J
 // against the textbook formulas evaluated on explicit data matrices with
 // gonum (Hayashi, Econometrics, 2000, section 3.5: efficient two-step GMM
-// and J = n ḡᵀŜ⁻¹ḡ), for HC1 and one-way cluster weights.
+// and J = n ḡᵀŜ⁻¹ḡ), for HC1, one-way and two-way cluster weights (the
+// two-way S as in Cameron, Gelbach & Miller 2011, JBES 29(2)).
 func TestTwoStepGMMExplicit(t *testing.T) {
 	cols, names, md, codes := gmmData(1, 600, 40)
+	// A second way (row i in period i mod 15) and its intersection with
+	// the first, for two-way clustering.
+	n := len(codes)
+	per, both := make([]int32, n), make([]int32, n)
+	pair := map[[2]int32]int32{}
+	for i := range per {
+		per[i] = int32(i % 15)
+		k := [2]int32{codes[i], per[i]}
+		if _, ok := pair[k]; !ok {
+			pair[k] = int32(len(pair))
+		}
+		both[i] = pair[k]
+	}
+	oneWay := []ClusterDim{{Name: "g", Codes: codes, G: 40}}
+	twoWay := append(oneWay, ClusterDim{Name: "t", Codes: per, G: 15}, ClusterDim{Name: "g×t", Codes: both, G: len(pair)})
 	for _, test := range []struct {
 		name string
 		vk   VcovKind
+		dims []ClusterDim
 		tol  float64
 	}{
-		{"hc1", HC1, 1e-9},
-		{"cluster", Cluster, 1e-9},
+		{"hc1", HC1, nil, 1e-9},
+		{"cluster", Cluster, oneWay, 1e-9},
+		{"two-way cluster", Cluster, twoWay, 1e-9},
 	} {
-		var dims []ClusterDim
-		var grp []int32
-		if test.vk == Cluster {
-			dims = []ClusterDim{{Name: "g", Codes: codes, G: 40}}
-			grp = codes
-		}
+		dims := test.dims
 		m := Accumulate(cols, names, dims, 2)
 		for rep := 0; rep < 2; rep++ { // a second run must give the same answer
 			g, err := TwoStepGMM(m, md, test.vk)
 			if err != nil {
 				t.Fatal(err)
 			}
-			b, j := explicitGMM(cols, md, grp, 40)
+			b, j := explicitGMM(cols, md, dims)
 			for i := range b {
 				if !scalar.EqualWithinAbsOrRel(g.Fit.Coef[i], b[i], test.tol, test.tol) {
 					t.Errorf("%s: coefficient %d = %.12g, explicit %.12g", test.name, i, g.Fit.Coef[i], b[i])

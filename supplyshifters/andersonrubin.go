@@ -408,7 +408,9 @@ func fmtSet(p []Interval) string {
 // andersonRubin fills Diagnostics.AndersonRubin.
 func (c *ctx) andersonRubin() {
 	if c.p != 1 {
-		c.dg.AndersonRubin = &ARBand{Shape: ShapeNone, Pieces: []Interval{}, Tests: []ARTest{},
+		nan := Num(math.NaN())
+		c.dg.AndersonRubin = &ARBand{Shape: ShapeNone, Pieces: []Interval{}, Tests: []ARTest{}, Level: c.level,
+			Critical: nan, Estimate: nan, WaldLow: nan, WaldHigh: nan,
 			Reason: fmt.Sprintf("The Anderson-Rubin band is computed for one endogenous regressor; this model has %d. A joint Anderson-Rubin set would need a search over %d dimensions.", c.p, c.p)}
 		return
 	}

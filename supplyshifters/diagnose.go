@@ -4,7 +4,6 @@ import (
 	"errors"
 	"fmt"
 	"math"
-	"sort"
 	"strings"
 
 	"gonum.org/v1/gonum/mat"
@@ -45,7 +44,9 @@ type Options struct {
 	// every shifter, as a cost shifter should raise price), -1 (it lowers
 	// it) or 0 (no expectation, no check). A key "shifter@regressor"
 	// applies to one endogenous regressor only and wins over the plain
-	// key.
+	// key. Names must be columns of the moments; columns that are not
+	// shifters of the model at hand are ignored (one map serves every
+	// subset of candidates).
 	ExpectSign map[string]int
 	// Subsets are groups of shifters for difference-in-J (C) tests, run
 	// beside the one-shifter tests that are always made.
@@ -181,10 +182,10 @@ func Diagnose(d *demand.Design, fit *ivcore.Fit, opts Options) (*Diagnostics, er
 
 // DiagnoseModel computes the evidence on the excluded instruments
 // (shifters) of model md from the moments m alone, with covariance kind
-// vk. fit is the fit being diagnosed (any estimator of md; its estimate
-// and Wald band are compared with the Anderson-Rubin band); nil means a
-// 2SLS fit computed here. The grouped estimator needs rows and is left
-// out (see Diagnose).
+// vk. fit is the fit being diagnosed: any estimator of md on m, normally
+// with covariance kind vk (its estimate and Wald band are shown beside
+// the Anderson-Rubin band); nil means a 2SLS fit computed here. The
+// grouped estimator needs rows and is left out (see Diagnose).
 //
 // DiagnoseModel returns an error when the model has no endogenous
 // regressor or no shifter, when the model cannot be estimated (ivcore's
@@ -225,8 +226,8 @@ type ctx struct {
 	p      int   // endogenous regressors
 	kParZ  int   // parameters of a regression on Z: |Z| + absorbed levels
 	zinv   *mat.SymDense
-	exIdx  []int        // positions of the shifters in z
-	be     *mat.Dense   // rows of (ZᵀZ)⁻¹ for the shifters, L×|Z|
+	exIdx  []int         // positions of the shifters in z
+	be     *mat.Dense    // rows of (ZᵀZ)⁻¹ for the shifters, L×|Z|
 	zzt    *mat.SymDense // Z̃ᵀZ̃ = ([(ZᵀZ)⁻¹]_ee)⁻¹, shifters net of the exogenous
 
 	piZ  [][]float64 // per endogenous regressor: coefficients on z
@@ -235,13 +236,11 @@ type ctx struct {
 	ry   []float64   // reduced-form residual combination
 
 	bank                               *scoreBank
-	bV, bY, bU                         int   // bank indices: first-stage (first of p), reduced form, 2SLS
-	bX, bSW                            []int // null residuals (rk LM), Sanderson-Windmeijer residuals
-	swRes                              [][]float64
-	crit                               float64 // two-sided t critical value at the level
+	bV, bY, bU                         int         // bank indices: first-stage (first of p), reduced form, 2SLS
+	bX, bSW                            []int       // null residuals (rk LM), Sanderson-Windmeijer residuals
+	swCoef                             [][]float64 // Sanderson-Windmeijer residuals on z
+	crit                               float64     // two-sided t critical value at the level
 	dg                                 *Diagnostics
-	firstF                             []float64 // first-stage F per endogenous regressor
-	names                              []string
 	shifterNames, endogNames           []string
 	outcomeName                        string
 	estimate, estSE, waldLow, waldHigh float64
@@ -273,7 +272,6 @@ func newCtx(m *ivcore.Moments, md ivcore.Model, vk ivcore.VcovKind, fit *ivcore.
 		}
 	}
 	c.fit = fit
-	c.names = m.Names
 	c.z = md.Z()
 	c.nw, c.nl, c.p = len(md.Exog), len(md.Instr), len(md.Endog)
 	c.kParZ = len(c.z) + m.AbsorbedDoF
@@ -332,7 +330,9 @@ func newCtx(m *ivcore.Moments, md ivcore.Model, vk ivcore.VcovKind, fit *ivcore.
 	return c, nil
 }
 
-// checkOptions rejects option names that are not shifters of the model.
+// checkOptions rejects option names that are not columns of the moments
+// (typing errors). Expected signs of columns that are not shifters of this
+// model are ignored, so one map can serve every subset of a screen.
 func (c *ctx) checkOptions() error {
 	known := map[string]bool{}
 	for _, s := range c.shifterNames {
@@ -341,11 +341,11 @@ func (c *ctx) checkOptions() error {
 	list := strings.Join(c.shifterNames, ", ")
 	for key, sign := range c.opts.ExpectSign {
 		name, endog, scoped := strings.Cut(key, "@")
-		if !known[name] {
-			return fmt.Errorf("supplyshifters: expected sign given for %q, which is not a shifter of this model (shifters: %s)", name, list)
+		if !known[name] && c.m.Index(name) < 0 {
+			return fmt.Errorf("supplyshifters: expected sign given for %q, which is not a column of the model (shifters: %s)", name, list)
 		}
-		if scoped && !slicesContains(c.endogNames, endog) {
-			return fmt.Errorf("supplyshifters: expected sign %q names %q, which is not an endogenous regressor of this model (endogenous: %s)", key, endog, strings.Join(c.endogNames, ", "))
+		if scoped && c.m.Index(endog) < 0 {
+			return fmt.Errorf("supplyshifters: expected sign %q names %q, which is not a column of the model (endogenous: %s)", key, endog, strings.Join(c.endogNames, ", "))
 		}
 		if sign < -1 || sign > 1 {
 			return fmt.Errorf("supplyshifters: expected sign of %q is %d: use +1 (raises price), -1 (lowers price) or 0 (no expectation)", key, sign)
@@ -362,15 +362,6 @@ func (c *ctx) checkOptions() error {
 		}
 	}
 	return nil
-}
-
-func slicesContains(s []string, v string) bool {
-	for _, x := range s {
-		if x == v {
-			return true
-		}
-	}
-	return false
 }
 
 // run registers the residuals the chosen parts need, makes the single
@@ -406,11 +397,11 @@ func (c *ctx) run() error {
 			if err != nil {
 				return err
 			}
-			_, _, u, err := c.m.Regress(eps, c.z)
+			g, _, u, err := c.m.Regress(eps, c.z)
 			if err != nil {
 				return fmt.Errorf("supplyshifters: %w", err)
 			}
-			c.swRes = append(c.swRes, u)
+			c.swCoef = append(c.swCoef, g)
 			c.bSW = append(c.bSW, c.bank.add(u))
 		}
 	}
@@ -423,7 +414,7 @@ func (c *ctx) run() error {
 	}
 	c.crit = ivcore.Critical(c.level, c.bank.info.DF)
 
-	if c.bV >= 0 {
+	if need(PartFirstStage) {
 		c.firstStages()
 	}
 	if need(PartWeakIV) {
@@ -444,9 +435,6 @@ func (c *ctx) run() error {
 	}
 	if need(PartReducedForm) {
 		c.reducedForm()
-	}
-	if !need(PartFirstStage) {
-		c.dg.FirstStage = []FirstStageDetail{}
 	}
 	return nil
 }
@@ -536,13 +524,3 @@ func fmtG(x float64) string {
 
 // pct formats a share as a percentage.
 func pct(x float64) string { return fmt.Sprintf("%.0f%%", 100*x) }
-
-// sortedKeys returns the keys of a map in order.
-func sortedKeys(m map[string]int) []string {
-	var k []string
-	for s := range m {
-		k = append(k, s)
-	}
-	sort.Strings(k)
-	return k
-}

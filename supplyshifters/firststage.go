@@ -32,7 +32,14 @@ type FirstStageDetail struct {
 	SheaPartialR2 *Num   `json:"shea_partial_r2,omitempty"`
 	SheaMeaning   string `json:"shea_meaning,omitempty"`
 	// ConditionalF (several endogenous regressors only) is the
-	// Sanderson-Windmeijer conditional F (see Diagnostics docs).
+	// Sanderson-Windmeijer conditional F: the strength of the shifters for
+	// this regressor given the others,
+	//
+	//	F_j|−j = W(ε̂_j on Z) / (L - p + 1)
+	//
+	// where ε̂_j is the residual of the 2SLS regression of x_j on the
+	// other endogenous regressors and the controls (Sanderson & Windmeijer
+	// 2016, Journal of Econometrics 190(2), 212-221).
 	ConditionalF *Stat `json:"sanderson_windmeijer_f,omitempty"`
 }
 
@@ -91,7 +98,8 @@ func (c *ctx) swResidual(j int) ([]float64, error) {
 // firstStages fills Diagnostics.FirstStage. Coefficients are Π = (ZᵀZ)⁻¹ZᵀX
 // from the Gram matrix and their covariance B M B from the score bank.
 func (c *ctx) firstStages() {
-	c.firstF = make([]float64, c.p)
+	maxT := make([]float64, c.nl)  // largest |t| of each shifter over the first stages
+	ownR2 := make([]float64, c.nl) // its largest own partial R²
 	var shea []float64
 	if c.p > 1 {
 		shea = c.sheaR2()
@@ -119,12 +127,15 @@ func (c *ctx) firstStages() {
 					se2.PartialR2 = Num(1 - ssr/s0)
 				}
 			}
+			maxT[a] = math.Max(maxT[a], math.Abs(t))
+			if float64(se2.PartialR2) > ownR2[a] {
+				ownR2[a] = float64(se2.PartialR2)
+			}
 			se2.ExpectedSign = c.expectedSign(name, endog)
 			se2.SignCheck, se2.Meaning = c.signSentence(name, endog, pe[a], t, se2.ExpectedSign)
 			fd.Shifters = append(fd.Shifters, se2)
 		}
 		f, p := c.waldF(pe, v, c.nl)
-		c.firstF[j] = f
 		fd.F = Stat{Name: "first-stage Wald F", Value: Num(f), Dist: c.fDist(c.nl), DF1: c.nl, DF2: c.bank.info.DF, P: Num(p)}
 		fd.F.Meaning = c.firstFSentence(endog, f, p)
 		fd.PartialR2 = Num(math.NaN())
@@ -142,6 +153,13 @@ func (c *ctx) firstStages() {
 		}
 		c.dg.FirstStage = append(c.dg.FirstStage, fd)
 	}
+	if c.nl > 1 {
+		for a, name := range c.shifterNames {
+			if maxT[a] < c.crit {
+				c.warn("Shifter %s adds nothing detectable to the first stage beyond the other shifters (largest |t| = %s, own partial R² %s): a shifter this weak adds bias toward OLS without adding information; consider dropping it.", name, fmtG(maxT[a]), fmtG(ownR2[a]))
+			}
+		}
+	}
 }
 
 func pctNum(x Num) string {
@@ -157,16 +175,16 @@ func (c *ctx) signSentence(name, endog string, b, t float64, want int) (check, m
 	if b < 0 {
 		dir = "lowers"
 	}
-	sig := math.Abs(t) >= c.crit
-	strength := "clearly"
-	if !sig {
-		strength = "but not significantly (|t| below " + fmtG(c.crit) + ")"
+	strength, tnote := "clearly", fmt.Sprintf("t = %s", fmtG(t))
+	if math.Abs(t) < c.crit {
+		strength = "but not significantly"
+		tnote += fmt.Sprintf(", |t| below %s", fmtG(c.crit))
 	}
 	switch {
 	case want == 0:
-		return SignNotChecked, fmt.Sprintf("%s %s %s %s (t = %s); no sign was expected.", name, dir, endog, strength, fmtG(t))
+		return SignNotChecked, fmt.Sprintf("%s %s %s %s (%s); no sign was expected.", name, dir, endog, strength, tnote)
 	case b == 0 || (b > 0) == (want > 0):
-		return SignAsExpected, fmt.Sprintf("%s %s %s %s (t = %s), as a cost shifter %s should.", name, dir, endog, strength, fmtG(t), map[bool]string{true: "that raises it", false: "declared to lower it"}[want > 0])
+		return SignAsExpected, fmt.Sprintf("%s %s %s %s (%s), as a cost shifter %s should.", name, dir, endog, strength, tnote, map[bool]string{true: "that raises it", false: "declared to lower it"}[want > 0])
 	}
 	wantDir := "raise"
 	flag := "-"
@@ -176,7 +194,7 @@ func (c *ctx) signSentence(name, endog string, b, t float64, want int) (check, m
 	}
 	c.warn("Shifter %s %s %s in the first stage (coefficient %s, t = %s), but it is expected to %s it: check the data and the economics; if it really moves %s the other way, declare it (%s=%s).",
 		name, dir, endog, fmtG(b), fmtG(t), wantDir, endog, name, flag)
-	m := fmt.Sprintf("WRONG SIGN: %s %s %s %s (t = %s) although it is expected to %s it; an instrument that moves price the wrong way suggests a data error or a shifter that also stands for demand.", name, dir, endog, strength, fmtG(t), wantDir)
+	m := fmt.Sprintf("WRONG SIGN: %s %s %s %s (%s) although it is expected to %s it; a shifter that moves price the wrong way suggests a data error or a shifter that also stands for demand.", name, dir, endog, strength, tnote, wantDir)
 	return SignWrong, m
 }
 
@@ -234,15 +252,7 @@ func (c *ctx) sheaSentence(endog string, shea, partial float64) string {
 // models with multiple endogenous variables", Journal of Econometrics
 // 190(2), 212-221, equation (16).
 func (c *ctx) conditionalF(j int) *Stat {
-	eps, err := c.swResidual(j)
-	if err != nil {
-		return nil
-	}
-	g, _, _, err := c.m.Regress(eps, c.z)
-	if err != nil {
-		return nil
-	}
-	ge := c.excluded(g)
+	ge := c.excluded(c.swCoef[j])
 	q := c.nl - c.p + 1
 	v := symOf(c.exclCov(c.bSW[j], c.bSW[j], false))
 	w := quadInv(v, ge)

@@ -34,13 +34,20 @@ type WeakIV struct {
 	// estimator, each with whether Cragg-Donald exceeds it.
 	StockYogo     []SYCheck `json:"stock_yogo"`
 	StockYogoNote string    `json:"stock_yogo_note"`
-	// KPWald is the Kleibergen-Paap rk Wald statistic divided by L: the
-	// robust analogue of Cragg-Donald (equal to it under iid errors, to
-	// the robust first-stage F with one endogenous regressor).
+	// KPWald is the Kleibergen-Paap rk Wald statistic divided by L, with
+	// the covariance of vec(Π̂) of the model's kind (first-stage
+	// residuals, small-sample factors included) and FᵀF = Σ̂_VV⁻¹: the
+	// robust analogue of Cragg-Donald (equal to it under iid errors, and
+	// to the robust first-stage F with one endogenous regressor).
 	KPWald Stat `json:"kp_rk_wald_f"`
 	// KPLM is the Kleibergen-Paap rk LM test of under-identification,
-	// H0: rank(Π) = p - 1, χ²(L - p + 1); under iid errors it is
-	// Anderson's canonical-correlation LM statistic.
+	// H0: rank(Π) = p - 1, χ²(L - p + 1): the rk statistic (rkStat) in
+	// its score form, with the covariance of vec(Π̂) estimated from the
+	// residuals under Π = 0 (the endogenous regressors net of the
+	// controls, X̃) as sums without small-sample factors, and the
+	// normalisation FᵀF = (X̃ᵀX̃)⁻¹. Under iid errors it is Anderson's
+	// canonical-correlation statistic n·mineig((X̃ᵀX̃)⁻¹X̃ᵀP_Z̃X̃); with one
+	// endogenous regressor it is the robust score test of π = 0.
 	KPLM Stat `json:"kp_rk_lm"`
 	// Effective is the Montiel Olea-Pflueger effective F test (one
 	// endogenous regressor only).

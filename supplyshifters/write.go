@@ -158,7 +158,7 @@ func sections(dg *Diagnostics) []section {
 			for _, e := range fs.Shifters {
 				sign := e.SignCheck
 				if e.ExpectedSign != 0 {
-					sign += fmt.Sprintf(" (%s)", map[bool]string{true: "+", false: "−"}[e.ExpectedSign > 0])
+					sign += fmt.Sprintf(" (expected %s)", map[bool]string{true: "+", false: "−"}[e.ExpectedSign > 0])
 				}
 				t.rows = append(t.rows, []string{e.Name, num(e.Estimate), num(e.StdError), num(e.T), pval(e.P), num(e.PartialR2), sign})
 			}
