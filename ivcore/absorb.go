@@ -88,11 +88,15 @@ type NotConvergedError struct {
 }
 
 func (e *NotConvergedError) Error() string {
-	return fmt.Sprintf("ivcore: absorbing the fixed effects did not converge for column %d after %d sweeps: "+
+	sweeps := "sweeps"
+	if e.Iterations == 1 {
+		sweeps = "sweep"
+	}
+	return fmt.Sprintf("ivcore: absorbing the fixed effects did not converge for column %d after %d %s: "+
 		"the last sweep still moved the residuals by %.3g of the column's standard deviation, above the tolerance %.3g; "+
 		"raise the sweep limit (--max-sweeps), loosen the tolerance, or look for effects with very many levels "+
 		"that are joined by few rows (for example products sold in only one or two weeks), and drop or merge them",
-		e.Column, e.Iterations, e.MaxChange, e.Tol)
+		e.Column, e.Iterations, sweeps, e.MaxChange, e.Tol)
 }
 
 const (
@@ -304,7 +308,7 @@ func feCheckEffects(effects []Effect, n int) {
 		if len(e.Codes) != n {
 			panic(fmt.Sprintf("ivcore: effect %d (%q) has %d codes for %d rows", k, e.Name, len(e.Codes), n))
 		}
-		if e.Levels < 0 || e.Levels > math.MaxInt32+1 {
+		if e.Levels < 0 || int64(e.Levels) > math.MaxInt32+1 {
 			panic(fmt.Sprintf("ivcore: effect %d (%q) has %d levels", k, e.Name, e.Levels))
 		}
 		lv := int32(e.Levels - 1) // e.Levels ≤ 2³¹, so no overflow
@@ -321,7 +325,6 @@ func feCheckEffects(effects []Effect, n int) {
 // counts of each effect and, with two or more effects, the cross-tabulation
 // of every pair of effects.
 type fePlan struct {
-	n      int
 	codes  [][]int32
 	inv    [][]float64 // 1/count per level, 0 for levels without rows
 	cross  [][]*feCross
@@ -335,7 +338,8 @@ type fePlan struct {
 // rows with level l of effect k and level m of effect j. Row l holds the
 // entries ptr[l] ≤ p < ptr[l+1], with column idx[p] and count w[p] (w is
 // nil when every count is 1, the usual case for a panel without duplicate
-// cells). Entries of a row are in order of first appearance in the data.
+// cells). Entries of a row are in order of first appearance in the data
+// for k < j, and in increasing order for k > j (built by transposition).
 type feCross struct {
 	ptr []int
 	idx []int32
@@ -352,7 +356,7 @@ type feResult struct {
 
 func newFEPlan(effects []Effect, n, workers int) *fePlan {
 	k := len(effects)
-	p := &fePlan{n: n, codes: make([][]int32, k), inv: make([][]float64, k), off: make([]int, k)}
+	p := &fePlan{codes: make([][]int32, k), inv: make([][]float64, k), off: make([]int, k)}
 	for j, e := range effects {
 		p.codes[j] = e.Codes
 		p.maxLev = max(p.maxLev, e.Levels)
@@ -412,14 +416,14 @@ func feInvCounts(e Effect) []float64 {
 }
 
 // feCrossTabs builds B_kj for every j > k by a counting sort of the rows
-// on effect k's codes, and B_jk as its transpose (feTranspose).
+// on effect k's codes (skipped when the rows are already in that order);
+// B_jk is built later as its transpose (feTranspose).
 func feCrossTabs(effects []Effect, k int) []*feCross {
 	ek := effects[k]
 	out := make([]*feCross, len(effects))
 	if k == len(effects)-1 {
 		return out
 	}
-	n := len(ek.Codes)
 	start := make([]int, ek.Levels+1)
 	for _, c := range ek.Codes {
 		start[c+1]++
@@ -427,46 +431,69 @@ func feCrossTabs(effects []Effect, k int) []*feCross {
 	for l := 1; l <= ek.Levels; l++ {
 		start[l] += start[l-1]
 	}
-	perm := make([]int32, n)
-	fill := slices.Clone(start[:ek.Levels])
-	for i, c := range ek.Codes {
-		perm[fill[c]] = int32(i)
-		fill[c]++
+	var perm []int32 // rows in order of effect k's codes; nil: already so
+	if !slices.IsSorted(ek.Codes) {
+		perm = make([]int32, len(ek.Codes))
+		fill := slices.Clone(start[:ek.Levels])
+		for i, c := range ek.Codes {
+			perm[fill[c]] = int32(i)
+			fill[c]++
+		}
 	}
-	idx := make([]int32, 0, n)
-	cnt := make([]int32, 0, n)
 	for j := k + 1; j < len(effects); j++ {
 		ej := effects[j]
+		cj := ej.Codes
 		mark := make([]int32, ej.Levels)
+		pos := make([]int, ej.Levels)
+		ptr := make([]int, ek.Levels+1)
+		// Count the distinct cells of each level of effect k.
 		for m := range mark {
 			mark[m] = -1
 		}
-		pos := make([]int, ej.Levels)
-		ptr := make([]int, ek.Levels+1)
-		idx, cnt = idx[:0], cnt[:0]
 		dup := false
-		cj := ej.Codes
 		for l := 0; l < ek.Levels; l++ {
-			ptr[l] = len(idx)
-			for _, row := range perm[start[l]:start[l+1]] {
-				m := cj[row]
-				if mark[m] == int32(l) {
-					cnt[pos[m]]++
-					dup = true
-					continue
+			d := 0
+			for i := start[l]; i < start[l+1]; i++ {
+				row := i
+				if perm != nil {
+					row = int(perm[i])
 				}
-				mark[m] = int32(l)
-				pos[m] = len(idx)
-				idx = append(idx, m)
-				cnt = append(cnt, 1)
+				if m := cj[row]; mark[m] != int32(l) {
+					mark[m] = int32(l)
+					d++
+				} else {
+					dup = true
+				}
 			}
+			ptr[l+1] = ptr[l] + d
 		}
-		ptr[ek.Levels] = len(idx)
-		x := &feCross{ptr: ptr, idx: slices.Clone(idx)}
+		// Fill the cells and, when some cell holds several rows, counts.
+		x := &feCross{ptr: ptr, idx: make([]int32, ptr[ek.Levels])}
 		if dup {
-			x.w = make([]float64, len(cnt))
-			for p, c := range cnt {
-				x.w[p] = float64(c)
+			x.w = make([]float64, ptr[ek.Levels])
+		}
+		for m := range mark {
+			mark[m] = -1
+		}
+		for l := 0; l < ek.Levels; l++ {
+			q := ptr[l]
+			for i := start[l]; i < start[l+1]; i++ {
+				row := i
+				if perm != nil {
+					row = int(perm[i])
+				}
+				m := cj[row]
+				if mark[m] != int32(l) {
+					mark[m] = int32(l)
+					pos[m] = q
+					x.idx[q] = m
+					if dup {
+						x.w[q] = 1
+					}
+					q++
+				} else {
+					x.w[pos[m]]++
+				}
 			}
 		}
 		out[j] = x
