@@ -3,6 +3,7 @@ package demand
 import (
 	"bytes"
 	"fmt"
+	"io"
 	"math"
 	"os"
 	"runtime"
@@ -23,10 +24,38 @@ type ReadOptions struct {
 
 // ReadCSVFile reads the whole file at path into memory and parses it with
 // ReadCSV, using path as the source name in errors. The file is only read.
+//
+// Before reading, the memory the file and its columns need (estimated
+// from the file's size and its first lines) is compared with the memory
+// available; a file that cannot fit gives a *MemoryError (wrapping
+// ErrTooLarge) that says how large it is, instead of running out of
+// memory part way.
 func ReadCSVFile(path string, opts ReadOptions) (*Panel, error) {
-	data, err := os.ReadFile(path)
+	f, err := os.Open(path)
 	if err != nil {
 		return nil, fmt.Errorf("demand: reading panel: %w", err)
+	}
+	defer f.Close()
+	st, err := f.Stat()
+	if err != nil {
+		return nil, fmt.Errorf("demand: reading panel: %w", err)
+	}
+	if st.IsDir() {
+		return nil, fmt.Errorf("demand: reading panel: %s is a folder; name the panel file", path)
+	}
+	size := st.Size()
+	head := make([]byte, min(size, 1<<20))
+	k, err := io.ReadFull(f, head)
+	if err != nil && err != io.ErrUnexpectedEOF {
+		return nil, fmt.Errorf("demand: reading panel: %w", err)
+	}
+	if err := checkMemory(path, size, csvMemoryNeed(size, head[:k]), "the file and its columns"); err != nil {
+		return nil, err
+	}
+	data := make([]byte, size)
+	copy(data, head[:k])
+	if _, err := io.ReadFull(f, data[k:]); err != nil {
+		return nil, fmt.Errorf("demand: reading panel %s: %w", path, err)
 	}
 	return ReadCSV(data, path, opts)
 }

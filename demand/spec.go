@@ -59,6 +59,11 @@ type Spec struct {
 	Exogenous   []string `yaml:"exogenous,omitempty" json:"exogenous,omitempty"`
 	Instruments []string `yaml:"instruments,omitempty" json:"instruments,omitempty"`
 
+	// ExpectSign declares shifters that lower price, as "name=-" (a cost
+	// shifter is expected to raise it; "name=+" restates the default and
+	// "name=?" drops the check).
+	ExpectSign []string `yaml:"expect_sign,omitempty" json:"expect_sign,omitempty"`
+
 	// FE lists the fixed effects to absorb (id columns).
 	FE []string `yaml:"fe,omitempty" json:"fe,omitempty"`
 	// Cluster lists one or two cluster columns.
@@ -193,6 +198,29 @@ func (s *Spec) Check() error {
 		return fmt.Errorf("%w: level %v outside (0.5, 1): give for example 0.95", ErrSpec, s.Level)
 	}
 	return nil
+}
+
+// ExpectedSigns parses ExpectSign into a map from shifter to +1, -1 or 0.
+func (s *Spec) ExpectedSigns() (map[string]int, error) {
+	out := map[string]int{}
+	for _, e := range s.ExpectSign {
+		name, sign, ok := strings.Cut(e, "=")
+		name = strings.TrimSpace(name)
+		if !ok || name == "" {
+			return nil, fmt.Errorf("%w: --expect-sign %q: write name=- for a shifter that lowers price (or name=+, name=?)", ErrSpec, e)
+		}
+		switch strings.TrimSpace(sign) {
+		case "+":
+			out[name] = 1
+		case "-":
+			out[name] = -1
+		case "?", "0":
+			out[name] = 0
+		default:
+			return nil, fmt.Errorf("%w: --expect-sign %q: the sign must be +, - or ?", ErrSpec, e)
+		}
+	}
+	return out, nil
 }
 
 // DelimiterByte returns the delimiter as a byte.

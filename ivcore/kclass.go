@@ -25,7 +25,7 @@ const (
 	Fuller
 )
 
-var estimatorNames = []string{"ols", "2sls", "liml", "fuller"}
+var estimatorNames = []string{"ols", "2sls", "liml", "fuller", "gmm"}
 
 func (e Estimator) String() string {
 	if int(e) < len(estimatorNames) {
@@ -142,6 +142,13 @@ func Estimate(m *Moments, md Model, est Estimator, vk VcovKind) (*Fit, error) {
 	zi := md.Z()
 	if len(xi) == 0 {
 		return nil, errors.New("ivcore: the model has no regressors")
+	}
+	if est == GMM {
+		r, err := TwoStepGMM(m, md, vk)
+		if err != nil {
+			return nil, err
+		}
+		return r.Fit, nil
 	}
 	if len(md.Instr) < len(md.Endog) {
 		return nil, &OrderError{Endogenous: m.names(md.Endog), Instruments: m.names(md.Instr)}

@@ -11,6 +11,7 @@ import (
 	"priceiv/demo"
 	"priceiv/elasticity"
 	"priceiv/ivcore"
+	"priceiv/supplyshifters"
 )
 
 func newEstimateCmd() *cobra.Command {
@@ -114,16 +115,22 @@ flags override it.`,
 					return err
 				}
 			}
-			if len(res.Elasticity) == 0 {
-				return emit(cmd, out, func(w io.Writer) error { return elasticity.WriteEstimate(w, res, format) })
+			parts := []func(io.Writer, string) error{
+				func(w io.Writer, f string) error { return elasticity.WriteEstimate(w, res, f) },
 			}
-			rep := elasticity.PooledMarkups(res, nil)
-			res.Cautions = nil // the margins section closes with them
-			return emit(cmd, out, func(w io.Writer) error {
-				return elasticity.WriteCombined(w, format,
-					func(w io.Writer, f string) error { return elasticity.WriteEstimate(w, res, f) },
-					func(w io.Writer, f string) error { return elasticity.WritePricing(w, rep, f) })
-			})
+			if len(d.Model.Instr) > 0 && len(d.Model.Endog) > 0 {
+				dg, err := diagnose(d, fit, spec)
+				if err != nil {
+					return err
+				}
+				parts = append(parts, func(w io.Writer, f string) error { return elasticity.WriteDiagnostics(w, dg, f) })
+			}
+			if len(res.Elasticity) > 0 {
+				rep := elasticity.PooledMarkups(res, nil)
+				res.Cautions = nil // the margins section closes with them
+				parts = append(parts, func(w io.Writer, f string) error { return elasticity.WritePricing(w, rep, f) })
+			}
+			return emit(cmd, out, func(w io.Writer) error { return elasticity.WriteCombined(w, format, parts...) })
 		},
 	}
 	mf.register(cmd.Flags())
@@ -260,6 +267,19 @@ func runCross(panel *demand.Panel, spec *demand.Spec) (*demand.CrossPrice, map[s
 	}
 	stats, err := elasticity.ProductStats(p, s.Product, s.Price, s.Quantity)
 	return c, stats, err
+}
+
+// diagnose runs the instrument diagnostics of a pooled fit.
+func diagnose(d *demand.Design, fit *ivcore.Fit, spec *demand.Spec) (*supplyshifters.Diagnostics, error) {
+	signs, err := spec.ExpectedSigns()
+	if err != nil {
+		return nil, err
+	}
+	dg, err := supplyshifters.Diagnose(d, fit, supplyshifters.Options{ExpectSign: signs, Level: d.Level})
+	if err != nil {
+		return nil, fmt.Errorf("shifter diagnostics: %w", err)
+	}
+	return dg, nil
 }
 
 // readPrices reads a --prices file for the products of a table.

@@ -88,6 +88,20 @@ func TestEstimateDemo(t *testing.T) {
 			t.Errorf("JSON lacks %q", key)
 		}
 	}
+	dg, ok := m["diagnostics"].(map[string]any)
+	if !ok {
+		t.Fatal("JSON lacks the diagnostics object")
+	}
+	for _, key := range []string{"first_stage", "weak_iv", "overid", "endogeneity", "anderson_rubin"} {
+		if dg[key] == nil {
+			t.Errorf("diagnostics lack %q", key)
+		}
+	}
+	ar := dg["anderson_rubin"].(map[string]any)
+	lo, hi := ar["ci_low"].(float64), ar["ci_high"].(float64)
+	if !(lo < el["own_price"].(float64) && el["own_price"].(float64) < hi) || ar["shape"] != "bounded interval" {
+		t.Errorf("Anderson-Rubin band %v to %v (%v) does not hold the estimate", lo, hi, ar["shape"])
+	}
 	for _, f := range []string{"text", "csv", "markdown"} {
 		out, _, err := run(t, "estimate", "--demo", "--format", f)
 		if err != nil || !strings.Contains(out, "price") {

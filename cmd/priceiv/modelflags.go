@@ -39,10 +39,11 @@ func (m *modelFlags) register(fs *pflag.FlagSet) {
 	fs.StringSliceVar(&s.Endogenous, "endogenous", nil, "general form: endogenous regressors")
 	fs.StringSliceVar(&s.Exogenous, "exogenous", nil, "general form: exogenous regressors")
 	fs.StringSliceVar(&s.Instruments, "instruments", nil, "general form: excluded instruments")
+	fs.StringSliceVar(&s.ExpectSign, "expect-sign", nil, "shifters expected to lower price, as name=- (cost shifters are expected to raise it)")
 	fs.StringSliceVar(&s.FE, "fe", nil, "fixed effects to absorb (id columns; a*b for an interaction)")
 	fs.StringSliceVar(&s.Cluster, "cluster", nil, "cluster column, or two for two-way clustering")
 	fs.StringVar(&s.Vcov, "vcov", "", "covariance: iid, hc1 or cluster (default: cluster with --cluster, else hc1)")
-	fs.StringVar(&s.Estimator, "estimator", "", "ols, 2sls (default), liml or fuller")
+	fs.StringVar(&s.Estimator, "estimator", "", "ols, 2sls (default), liml, fuller or gmm (two-step efficient)")
 	fs.Float64Var(&s.Level, "level", 0, "confidence level of bands (default 0.95)")
 	fs.IntVar(&s.MaxSweeps, "max-sweeps", 0, "most sweeps of fixed-effect absorption (default 10000)")
 	fs.Float64Var(&s.Tolerance, "tolerance", 0, "absorption convergence tolerance (default 1e-10)")
@@ -70,6 +71,7 @@ var flagField = map[string]func(dst, src *demand.Spec){
 	"exogenous":   func(d, s *demand.Spec) { d.Exogenous = s.Exogenous },
 	"instruments": func(d, s *demand.Spec) { d.Instruments = s.Instruments },
 	"fe":          func(d, s *demand.Spec) { d.FE = s.FE },
+	"expect-sign": func(d, s *demand.Spec) { d.ExpectSign = s.ExpectSign },
 	"cluster":     func(d, s *demand.Spec) { d.Cluster = s.Cluster },
 	"vcov":        func(d, s *demand.Spec) { d.Vcov = s.Vcov },
 	"estimator":   func(d, s *demand.Spec) { d.Estimator = s.Estimator },
@@ -104,6 +106,9 @@ func (m *modelFlags) resolve(cmd *cobra.Command, base demand.Spec) (*demand.Spec
 		return nil, err
 	}
 	if _, err := s.DelimiterByte(); err != nil {
+		return nil, err
+	}
+	if _, err := s.ExpectedSigns(); err != nil {
 		return nil, err
 	}
 	return &s, nil
