@@ -63,8 +63,25 @@ type CrossPrice struct {
 	Controls    []string `json:"controls"`
 	FE          []string `json:"fixed_effects"`
 	Warnings    []string `json:"warnings"`
+	// Bootstrap holds cluster-bootstrap percentile bands of the matrix
+	// (nil unless asked for), and BootstrapDraws the joint replicate
+	// draws [replicate][quantity i][price j].
+	Bootstrap      *CrossBootstrap `json:"bootstrap,omitempty"`
+	BootstrapDraws [][][]float64   `json:"bootstrap_draws,omitempty"`
 	// Fits holds each product's equation, in product order.
 	Fits []*ProductFit `json:"-"`
+}
+
+// CrossBootstrap is the percentile band of every entry of a cross-price
+// matrix from a joint cluster bootstrap of all equations.
+type CrossBootstrap struct {
+	CILow      [][]float64 `json:"ci_low"`
+	CIHigh     [][]float64 `json:"ci_high"`
+	StdErrors  [][]float64 `json:"std_errors"`
+	Replicates int         `json:"replicates"`
+	Clusters   int         `json:"clusters"`
+	Seed       uint64      `json:"seed"`
+	Level      float64     `json:"level"`
 }
 
 // CrossOrderError reports a cross-price model with fewer instruments than

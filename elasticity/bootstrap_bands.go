@@ -91,3 +91,110 @@ func BootstrapTable(t *demand.ProductTable, B int, seed uint64, progress func(in
 	t.Notes = append(t.Notes, notes...)
 	return nil
 }
+
+// BootstrapCross adds cluster-bootstrap bands to a cross-price matrix.
+// Every equation's cluster blocks are recoded to one coding of the
+// clusters over all equations (by cluster label), and all equations are
+// bootstrapped with the same seed, so replicate r resamples the same
+// clusters in every equation: the draws of the whole matrix are joint
+// draws, as what-ifs across products need.
+func BootstrapCross(c *demand.CrossPrice, B int, seed uint64, progress func(int)) error {
+	n := len(c.Products)
+	if c.Form != "log-log" {
+		return fmt.Errorf("--bootstrap with --cross is available for log-log demand, where the coefficients are the elasticities; this model is %s", c.Form)
+	}
+	if len(c.Fits) != n {
+		return fmt.Errorf("--bootstrap: the cross-price matrix has %d products but %d fitted equations", n, len(c.Fits))
+	}
+	// One coding of cluster labels across equations.
+	global := map[string]int32{}
+	tos := make([][]int32, n)
+	for i, pf := range c.Fits {
+		d := pf.Design
+		if len(d.Moments.Clusters) == 0 {
+			return fmt.Errorf("the cluster bootstrap resamples clusters: set --cluster (for example the store column)")
+		}
+		_, labels, err := d.Panel.IDs(d.ClusterNames[0])
+		if err != nil {
+			return err
+		}
+		pcodes, _, _ := d.Panel.IDs(d.ClusterNames[0])
+		cd := d.Moments.Clusters[0].Dim
+		to := make([]int32, cd.G)
+		for j, row := range d.Rows {
+			lab := labels[pcodes[row]]
+			g, ok := global[lab]
+			if !ok {
+				g = int32(len(global))
+				global[lab] = g
+			}
+			to[cd.Codes[j]] = g
+		}
+		tos[i] = to
+	}
+	G := len(global)
+	draws := make([]map[int][]float64, n)
+	var total int
+	for i, pf := range c.Fits {
+		d := pf.Design
+		m := d.Moments.Recode(0, tos[i], G)
+		if B < MinBootstrap {
+			return fmt.Errorf("--bootstrap %d is too few replicates: percentile bands need at least %d (999 is usual)", B, MinBootstrap)
+		}
+		var tick func(int)
+		if progress != nil {
+			base := total
+			tick = func(k int) { progress(base + k) }
+		}
+		bs, err := ivcore.ClusterBootstrap(m, 0, pf.Fit.Model, pf.Fit.Estimator, B, seed, 0, tick)
+		if err != nil {
+			return fmt.Errorf("%s: %w", pf.Product, err)
+		}
+		total += B
+		draws[i] = map[int][]float64{}
+		for r, row := range bs.Draws {
+			e := make([]float64, n)
+			// The prices are the endogenous regressors, in product
+			// order, and come first among the coefficients.
+			copy(e, row[:n])
+			draws[i][bs.Index[r]] = e
+		}
+	}
+	// Keep replicates that succeeded in every equation.
+	var joint [][][]float64
+	for r := 0; r < B; r++ {
+		mtx := make([][]float64, n)
+		ok := true
+		for i := range c.Fits {
+			row, has := draws[i][r]
+			if !has {
+				ok = false
+				break
+			}
+			mtx[i] = row
+		}
+		if ok {
+			joint = append(joint, mtx)
+		}
+	}
+	if len(joint) < MinBootstrap {
+		return fmt.Errorf("--bootstrap: only %d of %d replicates could be estimated in every equation", len(joint), B)
+	}
+	cb := &demand.CrossBootstrap{Replicates: len(joint), Clusters: G, Seed: seed, Level: c.Level}
+	for i := 0; i < n; i++ {
+		lo, hi, se := make([]float64, n), make([]float64, n), make([]float64, n)
+		for j := 0; j < n; j++ {
+			x := make([]float64, len(joint))
+			for r := range joint {
+				x[r] = joint[r][i][j]
+			}
+			sort.Float64s(x)
+			lo[j] = stat.Quantile((1-c.Level)/2, stat.Empirical, x, nil)
+			hi[j] = stat.Quantile((1+c.Level)/2, stat.Empirical, x, nil)
+			se[j] = stat.StdDev(x, nil)
+		}
+		cb.CILow, cb.CIHigh, cb.StdErrors = append(cb.CILow, lo), append(cb.CIHigh, hi), append(cb.StdErrors, se)
+	}
+	c.Bootstrap, c.BootstrapDraws = cb, joint
+	return nil
+}

@@ -168,6 +168,9 @@ func WriteCombined(w io.Writer, format string, parts ...func(io.Writer, string) 
 				return err
 			}
 			b := buf.Bytes()
+			if len(b) == 0 {
+				continue
+			}
 			if format == "text" && i < len(parts)-1 {
 				if k := bytes.Index(b, []byte("\nREAD WITH CARE\n")); k >= 0 {
 					b = b[:k+1]
@@ -233,4 +236,30 @@ func WriteCombined(w io.Writer, format string, parts ...func(io.Writer, string) 
 	out.WriteString("}\n")
 	_, err := w.Write(out.Bytes())
 	return err
+}
+
+// CrossOwnRows returns the diagonal of a cross-price matrix as own-price
+// elasticity rows, with each product's prices and units, so that an
+// estimate file of a cross-price model is complete for what-ifs.
+func CrossOwnRows(c *demand.CrossPrice, stats map[string]demand.PriceStats) []demand.Elasticity {
+	var out []demand.Elasticity
+	for i, p := range c.Products {
+		out = append(out, demand.Elasticity{
+			Product: p, OwnPrice: c.Matrix[i][i], StdError: c.StdErrors[i][i],
+			CILow: c.CILow[i][i], CIHigh: c.CIHigh[i][i], At: "everywhere (constant elasticity)",
+			N: c.N[i], PriceStats: stats[p],
+		})
+	}
+	return out
+}
+
+// WriteJSONOnly returns a part for WriteCombined that writes v under key in
+// JSON output and nothing in the other formats.
+func WriteJSONOnly(key string, v any) func(io.Writer, string) error {
+	return func(w io.Writer, format string) error {
+		if format != "json" {
+			return nil
+		}
+		return json.NewEncoder(w).Encode(map[string]any{key: v})
+	}
 }

@@ -439,6 +439,13 @@ func writeCrossText(w io.Writer, c *demand.CrossPrice) error {
 		b.WriteString("\n")
 	}
 	b.WriteString("  (* own-price elasticity)\n")
+	if bb := c.Bootstrap; bb != nil {
+		fmt.Fprintf(&b, "\nCLUSTER BOOTSTRAP (%d joint replicates over %d clusters, seed %d): own-price percentile bands\n", bb.Replicates, bb.Clusters, bb.Seed)
+		for i, p := range c.Products {
+			fmt.Fprintf(&b, "  [%d] %-28s %s to %s   (bootstrap s.e. %s)\n", i+1, p, tblNum(bb.CILow[i][i], 3), tblNum(bb.CIHigh[i][i], 3), tblNum(bb.StdErrors[i][i], 3))
+		}
+		b.WriteString("  (the JSON output holds the bands of every entry and the joint draws, for what-ifs)\n")
+	}
 	b.WriteString("\nWHAT IDENTIFIES IT\n")
 	if len(c.Specific) > 0 {
 		fmt.Fprintf(&b, "  product-specific shifters (one instrument per product): %s\n", strings.Join(c.Specific, ", "))

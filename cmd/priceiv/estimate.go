@@ -87,6 +87,14 @@ flags override it.`,
 				if err != nil {
 					return err
 				}
+				if boot > 0 {
+					tick, done := progress(boot*len(c.Fits), "bootstrap")
+					err := elasticity.BootstrapCross(c, boot, seed, tick)
+					done()
+					if err != nil {
+						return err
+					}
+				}
 				var prices []elasticity.PriceRow
 				if pricesFile != "" {
 					if prices, err = elasticity.ReadPricesFile(pricesFile, c.Products); err != nil {
@@ -97,6 +105,7 @@ flags override it.`,
 				return emit(cmd, out, func(w io.Writer) error {
 					return elasticity.WriteCombined(w, format,
 						func(w io.Writer, f string) error { return elasticity.WriteCrossPrice(w, c, f) },
+						elasticity.WriteJSONOnly("elasticities", elasticity.CrossOwnRows(c, stats)),
 						func(w io.Writer, f string) error { return elasticity.WritePricing(w, rep, f) })
 				})
 			}
@@ -179,7 +188,7 @@ func loadInputs(cmd *cobra.Command, mf *modelFlags, args []string, useDemo bool)
 		return nil, nil, fmt.Errorf("no panel given: name a CSV file (priceiv estimate FILE ...), set data: in the --spec file, or try --demo")
 	}
 	delim, _ := spec.DelimiterByte()
-	panel, err := demand.ReadCSVFile(spec.Data, demand.ReadOptions{Delimiter: delim})
+	panel, err := demand.ReadPanelFile(spec.Data, demand.ReadOptions{Delimiter: delim})
 	if err != nil {
 		return nil, nil, err
 	}

@@ -74,3 +74,28 @@ Mocha Can 250ml,2.69,1.80
 		t.Fatal("no margin row for Original Bottle 330ml")
 	}
 }
+
+// TestCrossBootstrap: --cross --bootstrap gives joint draws of the whole
+// matrix and percentile bands that hold the point estimates (generated
+// truth: demo market).
+func TestCrossBootstrap(t *testing.T) {
+	m := runJSON(t, "estimate", "--demo", "--cross", "--bootstrap", "60", "--seed", "3")
+	c := m["cross_price"].(map[string]any)
+	b := c["bootstrap"].(map[string]any)
+	draws := c["bootstrap_draws"].([]any)
+	if b["replicates"].(float64) != 60 || len(draws) != 60 {
+		t.Fatalf("replicates %v, draws %d", b["replicates"], len(draws))
+	}
+	mat := c["matrix"].([]any)
+	lo, hi := b["ci_low"].([]any), b["ci_high"].([]any)
+	for i := range mat {
+		e := mat[i].([]any)[i].(float64)
+		l, h := lo[i].([]any)[i].(float64), hi[i].([]any)[i].(float64)
+		if !(l < e && e < h) {
+			t.Errorf("product %d: own elasticity %.3f outside its bootstrap band %.3f to %.3f", i, e, l, h)
+		}
+	}
+	if len(m["elasticities"].([]any)) != len(mat) {
+		t.Error("cross-price output lacks the own-price rows with prices for what-ifs")
+	}
+}
