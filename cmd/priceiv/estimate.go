@@ -185,7 +185,7 @@ func loadInputs(cmd *cobra.Command, mf *modelFlags, args []string, useDemo bool)
 		spec.Data = args[0]
 	}
 	if spec.Data == "" {
-		return nil, nil, fmt.Errorf("no panel given: name a CSV file (priceiv estimate FILE ...), set data: in the --spec file, or try --demo")
+		return nil, nil, fmt.Errorf("no panel given: name a CSV file (priceiv %s FILE ...), set data: in the --spec file, or try --demo", cmd.Name())
 	}
 	delim, _ := spec.DelimiterByte()
 	panel, err := demand.ReadPanelFile(spec.Data, demand.ReadOptions{Delimiter: delim})
