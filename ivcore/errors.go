@@ -25,7 +25,7 @@ type OrderError struct {
 }
 
 func (e *OrderError) Error() string {
-	return fmt.Sprintf("the model has %d endogenous regressor(s) (%s) but only %d excluded instrument(s) (%s); each endogenous regressor needs at least one instrument of its own: add cost shifters or treat fewer columns as endogenous",
+	return fmt.Sprintf("the model has %d endogenous regressor(s) (%s) but only %d excluded instrument(s) (%s); each endogenous regressor needs at least one instrument of its own: add cost shifters (--shifters or --instruments), or treat fewer columns as endogenous (--estimator ols fits the plain regression, which simultaneity biases)",
 		len(e.Endogenous), strings.Join(e.Endogenous, ", "), len(e.Instruments), listOrNone(e.Instruments))
 }
 
