@@ -78,6 +78,21 @@ type Spec struct {
 	// MaxSweeps and Tolerance control fixed-effect absorption.
 	MaxSweeps int     `yaml:"max_sweeps,omitempty" json:"max_sweeps,omitempty"`
 	Tolerance float64 `yaml:"tolerance,omitempty" json:"tolerance,omitempty"`
+
+	// Report options, used by priceiv report (the meeting pack) and
+	// ignored by the other commands. Title heads the report. Prices names
+	// a CSV of current prices per product (product, price, and optionally
+	// unit_cost, quantity, owner), read relative to the spec file.
+	// WhatIfs lists the price moves to simulate, one scenario per entry:
+	// "PRODUCT=+5%", "PRODUCT=-3%" or "PRODUCT=4.20", several moves of one
+	// scenario joined by "; ". Bootstrap is the number of cluster
+	// bootstrap replicates of the cross-price matrix (0: none; bands then
+	// come from the delta method), drawn from Seed.
+	Title     string   `yaml:"title,omitempty" json:"title,omitempty"`
+	Prices    string   `yaml:"prices,omitempty" json:"prices,omitempty"`
+	WhatIfs   []string `yaml:"whatifs,omitempty" json:"whatifs,omitempty"`
+	Bootstrap int      `yaml:"bootstrap,omitempty" json:"bootstrap,omitempty"`
+	Seed      uint64   `yaml:"seed,omitempty" json:"seed,omitempty"`
 }
 
 // ErrSpec marks a problem with a spec file or its fields.

@@ -270,6 +270,34 @@ type TestRow struct {
 	Meaning Text `json:"meaning" csv:"meaning" xlsx:"wide"`
 }
 
+// ScreenRow is one combination of candidate shifters in the screen,
+// best first.
+type ScreenRow struct {
+	Rank     int  `json:"rank" csv:"rank" xlsx:"int"`
+	Shifters Text `json:"shifters" csv:"shifters" xlsx:"text"`
+	// Verdict is solid, usable, weak, suspect or wrong-sign (see
+	// supplyshifters.ScreenRow).
+	Verdict Text `json:"verdict" csv:"verdict" xlsx:"text"`
+	// EffectiveF and its critical value; PartialR2 the share of price
+	// variation the shifters explain.
+	EffectiveF Number `json:"effective_f" csv:"effective_f" xlsx:"stat"`
+	Critical   Number `json:"effective_f_critical" csv:"effective_f_critical" xlsx:"stat"`
+	PartialR2  Number `json:"partial_r2" csv:"partial_r2" xlsx:"pct"`
+	// HansenJ and its p-value (null when exactly identified); Suspects
+	// the shifters whose difference-in-J test rejects.
+	HansenJ  Number `json:"hansen_j" csv:"hansen_j" xlsx:"stat"`
+	HansenJP Number `json:"hansen_j_p" csv:"hansen_j_p" xlsx:"p"`
+	Suspects Text   `json:"suspects" csv:"suspects" xlsx:"text"`
+	// Elasticity with its Wald band and the hull of the Anderson-Rubin set.
+	Elasticity Number `json:"elasticity" csv:"elasticity" xlsx:"elast"`
+	WaldLow    Number `json:"wald_low" csv:"wald_low" xlsx:"elast"`
+	WaldHigh   Number `json:"wald_high" csv:"wald_high" xlsx:"elast"`
+	ARLow      Number `json:"ar_low" csv:"ar_low" xlsx:"elast"`
+	ARHigh     Number `json:"ar_high" csv:"ar_high" xlsx:"elast"`
+	ARShape    Text   `json:"ar_shape" csv:"ar_shape" xlsx:"text"`
+	Reasons    Text   `json:"reasons" csv:"reasons" xlsx:"wide"`
+}
+
 // TermRow is one coefficient of the pooled model.
 type TermRow struct {
 	Term     Text   `json:"term" csv:"term" xlsx:"text"`
@@ -334,6 +362,16 @@ type CrossInfo struct {
 	Warnings      []string `json:"warnings"`
 }
 
+// ScreenInfo describes a screen of candidate shifters.
+type ScreenInfo struct {
+	Candidates   []string `json:"candidates"`
+	Controls     []string `json:"controls"`
+	Combinations int      `json:"combinations"`
+	N            int      `json:"n"`
+	Rule         string   `json:"rule"`
+	Notes        []string `json:"notes"`
+}
+
 // PooledInfo describes the pooled model.
 type PooledInfo struct {
 	Source      string   `json:"source"`
@@ -370,6 +408,8 @@ type ReportData struct {
 	Markups      []MarkupRow        `json:"markups"`
 	WhatIfs      []WhatIfRow        `json:"what_ifs"`
 	Truth        []TruthRow         `json:"demo_truth,omitempty"`
+	Screen       []ScreenRow        `json:"screen,omitempty"`
+	ScreenInfo   *ScreenInfo        `json:"screen_info,omitempty"`
 	Diagnostics  []ModelDiagnostics `json:"diagnostics"`
 
 	// Warnings are findings a reader must not miss; Assumptions state

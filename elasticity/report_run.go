@@ -4,7 +4,6 @@ import (
 	"errors"
 	"fmt"
 	"math"
-	"slices"
 	"sort"
 	"strings"
 
@@ -23,6 +22,7 @@ const (
 	SectionShifters = "shifters"
 	SectionMargins  = "margins"
 	SectionWhatIfs  = "whatifs"
+	SectionScreen   = "screen"
 )
 
 var sectionTitles = map[string]string{
@@ -32,6 +32,7 @@ var sectionTitles = map[string]string{
 	SectionShifters: "Are the cost shifters credible?",
 	SectionMargins:  "Margins the elasticities imply",
 	SectionWhatIfs:  "What if prices move",
+	SectionScreen:   "Which cost shifters to use (screen of candidates)",
 }
 
 // WholeLine labels the rows of a what-if that sum over all products.
@@ -54,7 +55,10 @@ type ReportInput struct {
 	// cross-price model (Product, Unit and Time set). A nil spec skips
 	// its section; Skip then says why.
 	Pooled, ByProduct, Cross *demand.Spec
-	Skip                     map[string]string
+	// Screen, when not nil, is a spec whose shifters are candidates to
+	// screen alone and in combinations (supplyshifters.Screen).
+	Screen *demand.Spec
+	Skip   map[string]string
 	// Prices are the current prices, unit costs, units per period and
 	// owners of the products (optional), read from PricesSource.
 	Prices       []PriceRow
@@ -217,7 +221,12 @@ func RunReport(in ReportInput) (*ReportData, error) {
 		set(SectionWhatIfs, r.whatIfs(in, est), "")
 	}
 	r.truth(in)
-	for _, n := range []string{SectionPooled, SectionProducts, SectionCross, SectionShifters, SectionMargins, SectionWhatIfs} {
+	if in.Screen != nil {
+		set(SectionScreen, r.runScreen(in), "")
+	} else {
+		set(SectionScreen, nil, skipped(SectionScreen))
+	}
+	for _, n := range []string{SectionPooled, SectionProducts, SectionCross, SectionShifters, SectionScreen, SectionMargins, SectionWhatIfs} {
 		r.Sections = append(r.Sections, status[n])
 	}
 	r.Warnings = uniqueStrings(r.Warnings)
@@ -265,7 +274,7 @@ func (r *ReportData) runPooled(in ReportInput) (*ElasticityRow, error) {
 	r.plots.pooledDesign, r.plots.pooledFit = d, fit
 	var dg *supplyshifters.Diagnostics
 	if len(d.Model.Instr) > 0 && len(d.Model.Endog) > 0 {
-		dg, err = supplyshifters.Diagnose(d, fit, supplyshifters.Options{})
+		dg, err = diagnoseDesign(d, fit, &spec, supplyshifters.PartAll)
 		if err != nil {
 			r.Warnings = append(r.Warnings, "pooled model: the shifter diagnostics could not be computed: "+err.Error())
 			dg = nil
@@ -366,7 +375,7 @@ func (r *ReportData) runProducts(in ReportInput) (*demand.ProductTable, error) {
 		if pf == nil {
 			continue
 		}
-		dg, err := supplyshifters.Diagnose(pf.Design, pf.Fit, supplyshifters.Options{Parts: supplyshifters.PartAll &^ supplyshifters.PartGrouped})
+		dg, err := diagnoseDesign(pf.Design, pf.Fit, &spec, supplyshifters.PartAll&^supplyshifters.PartGrouped)
 		if err != nil {
 			r.Warnings = append(r.Warnings, e.Product+": the shifter diagnostics could not be computed: "+err.Error())
 			continue
@@ -406,13 +415,19 @@ func (r *ReportData) runCross(in ReportInput) (*demand.CrossPrice, [][]float64, 
 	n := len(c.Products)
 	var draws [][]float64
 	if in.Bootstrap > 0 {
-		d, notes, err := crossDraws(c, in.Bootstrap, in.Seed, in.Workers)
-		if err != nil {
+		if err := BootstrapCross(c, in.Bootstrap, in.Seed, nil); err != nil {
 			r.Warnings = append(r.Warnings, "cross-price bootstrap not used: "+err.Error())
 		} else {
-			draws = d
-			info.Bootstrap = len(d)
-			info.BootstrapNote = notes
+			for _, m := range c.BootstrapDraws {
+				flat := make([]float64, 0, n*n)
+				for _, row := range m {
+					flat = append(flat, row...)
+				}
+				draws = append(draws, flat)
+			}
+			info.Bootstrap = len(draws)
+			info.BootstrapNote = []string{fmt.Sprintf("pairs cluster bootstrap of every equation with the same seed (%d) over one coding of the %d clusters, so each draw of the matrix resamples the same clusters in every equation; %d of %d replicates succeeded in every equation",
+				in.Seed, c.Bootstrap.Clusters, len(draws), in.Bootstrap)}
 		}
 	}
 	for i := range n {
@@ -423,13 +438,8 @@ func (r *ReportData) runCross(in ReportInput) (*demand.CrossPrice, [][]float64, 
 				WaldLow: Number(c.CILow[i][j]), WaldHigh: Number(c.CIHigh[i][j]), BootLow: nan, BootHigh: nan,
 				FirstStageF: Number(c.FirstStageF[i][j]), Rows: c.N[i],
 			}
-			if len(draws) > 0 {
-				x := make([]float64, len(draws))
-				for b, d := range draws {
-					x[b] = d[i*n+j]
-				}
-				lo, hi := percentiles(x, c.Level)
-				row.BootLow, row.BootHigh = Number(lo), Number(hi)
+			if bb := c.Bootstrap; bb != nil {
+				row.BootLow, row.BootHigh = Number(bb.CILow[i][j]), Number(bb.CIHigh[i][j])
 			}
 			r.Cross = append(r.Cross, row)
 		}
@@ -437,76 +447,59 @@ func (r *ReportData) runCross(in ReportInput) (*demand.CrossPrice, [][]float64, 
 	return c, draws, nil
 }
 
-// crossDraws bootstraps every equation of a cross-price model with the
-// same seed and returns the joint draws of the matrix (row-major), from
-// the replicates that succeeded in every equation.
-func crossDraws(c *demand.CrossPrice, B int, seed uint64, workers int) ([][]float64, []string, error) {
-	n := len(c.Products)
-	if len(c.Fits) != n {
-		return nil, nil, errors.New("an equation of the matrix is missing")
+// runScreen screens the candidate shifters of the screen spec alone and
+// in combinations and fills the screen table.
+func (r *ReportData) runScreen(in ReportInput) error {
+	spec := *in.Screen
+	spec.By, spec.Interact, spec.Cross = "", "", false
+	if len(spec.Shifters) < 2 {
+		return errors.New("a screen compares combinations of at least two candidate shifters")
 	}
-	type eq struct {
-		bs  *ivcore.Bootstrap
-		idx []int     // position of each price in the draws
-		sc  []float64 // coefficient to elasticity
-		at  map[int]int
+	p, _, err := demand.Prepare(in.Panel, &spec)
+	if err != nil {
+		return err
 	}
-	eqs := make([]eq, n)
-	var notes []string
-	for i, pf := range c.Fits {
-		d, f := pf.Design, pf.Fit
-		if len(d.Moments.Clusters) == 0 {
-			return nil, nil, errors.New("the cluster bootstrap resamples clusters: set a cluster column (for example the store)")
-		}
-		bs, err := ivcore.ClusterBootstrap(d.Moments, 0, f.Model, f.Estimator, B, seed, workers, nil)
-		if err != nil {
-			return nil, nil, fmt.Errorf("equation of %s: %w", c.Products[i], err)
-		}
-		e := eq{bs: bs, at: map[int]int{}}
-		for j := range n {
-			name := d.Names[d.Model.Endog[j]]
-			k := slices.Index(bs.Names, name)
-			if k < 0 {
-				return nil, nil, fmt.Errorf("equation of %s: no coefficient %q in the bootstrap", c.Products[i], name)
-			}
-			e.idx = append(e.idx, k)
-			sc := 1.0
-			if b := f.Coef[f.Index(name)]; b != 0 {
-				sc = c.Matrix[i][j] / b
-			}
-			e.sc = append(e.sc, sc)
-		}
-		for row, rep := range bs.Index {
-			e.at[rep] = row
-		}
-		eqs[i] = e
-		if i == 0 {
-			notes = append(notes, bs.Notes...)
-		}
+	d, err := demand.Build(p, &spec, in.Workers)
+	if err != nil {
+		return err
 	}
-	var draws [][]float64
-	for rep := range B {
-		m := make([]float64, n*n)
-		ok := true
-		for i, e := range eqs {
-			row, has := e.at[rep]
-			if !has {
-				ok = false
-				break
-			}
-			for j := range n {
-				m[i*n+j] = e.sc[j] * e.bs.Draws[row][e.idx[j]]
-			}
-		}
-		if ok {
-			draws = append(draws, m)
-		}
+	signs, err := spec.ExpectedSigns()
+	if err != nil {
+		return err
 	}
-	if len(draws) < ivcore.MinBootstrapReplicates {
-		return nil, nil, fmt.Errorf("only %d of %d replicates succeeded in every equation", len(draws), B)
+	res, err := supplyshifters.Screen(d, spec.Shifters, supplyshifters.ScreenOptions{ExpectSign: signs, Workers: in.Workers})
+	if err != nil {
+		return err
 	}
-	notes = append(notes, fmt.Sprintf("the %d equations were resampled with the same seed, so each draw of the matrix is one draw of the same clusters; %d of %d replicates succeeded in every equation", n, len(draws), B))
-	return draws, notes, nil
+	r.ScreenInfo = &ScreenInfo{Candidates: res.Candidates, Controls: nonNilS(res.Controls), Combinations: res.Combinations,
+		N: res.N, Rule: res.Rule, Notes: nonNilS(res.Notes)}
+	for _, row := range res.Rows {
+		sr := ScreenRow{
+			Rank: row.Rank, Shifters: Text(strings.Join(row.Shifters, ", ")), Verdict: Text(row.Verdict),
+			EffectiveF: Number(row.EffectiveF), Critical: Number(row.Critical), PartialR2: Number(row.PartialR2),
+			HansenJ: Number(row.J), HansenJP: Number(row.JP), Suspects: Text(strings.Join(row.Suspects, ", ")),
+			Elasticity: Number(row.Elasticity), WaldLow: Number(row.WaldLow), WaldHigh: Number(row.WaldHigh),
+			ARLow: nan, ARHigh: nan, ARShape: Text(row.ARShape), Reasons: Text(strings.Join(row.Reasons, "; ")),
+		}
+		if row.ARLow != nil {
+			sr.ARLow = Number(*row.ARLow)
+		}
+		if row.ARHigh != nil {
+			sr.ARHigh = Number(*row.ARHigh)
+		}
+		r.Screen = append(r.Screen, sr)
+	}
+	return nil
+}
+
+// diagnoseDesign computes the evidence on a design's shifters, with the
+// signs the spec expects of them.
+func diagnoseDesign(d *demand.Design, fit *ivcore.Fit, spec *demand.Spec, parts supplyshifters.Part) (*supplyshifters.Diagnostics, error) {
+	signs, err := spec.ExpectedSigns()
+	if err != nil {
+		return nil, err
+	}
+	return supplyshifters.Diagnose(d, fit, supplyshifters.Options{ExpectSign: signs, Level: d.Level, Parts: parts})
 }
 
 // addDiagnostics adds the shifter and test rows of one model.
@@ -631,15 +624,6 @@ func (r *ReportData) addDiagnostics(model string, dg *supplyshifters.Diagnostics
 	}
 	if e := dg.Endogeneity; e != nil {
 		add("endogeneity (does price need instrumenting?)", e.Test, nan, e.Test.P.Finite() && float64(e.Test.P) < alpha)
-	}
-	if ar := dg.AndersonRubin; ar != nil && ar.Available {
-		for _, at := range ar.Tests {
-			st := at.Stat
-			if st.Name == "" {
-				st.Name = "Anderson-Rubin"
-			}
-			add(fmt.Sprintf("Anderson-Rubin test of coefficient %g", at.Null), st, nan, at.Rejected)
-		}
 	}
 	for _, w := range dg.Warnings {
 		r.Warnings = append(r.Warnings, model+" model: "+w)
@@ -1158,10 +1142,7 @@ func hullOf(b *demand.RobustBand) (lo, hi Number) {
 }
 
 func nonNilS(s []string) []string {
-	if s == nil {
-		return []string{}
-	}
-	return append([]string(nil), s...)
+	return append([]string{}, s...)
 }
 
 func uniqueStrings(s []string) []string {

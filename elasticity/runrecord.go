@@ -111,6 +111,10 @@ func (c *countWriter) Write(p []byte) (int, error) {
 	return n, err
 }
 
+// Block reports whether the value is a block of text (a spec) to be
+// shown as such.
+func (r RecordRow) Block() bool { return strings.HasPrefix(string(r.Field), "spec ") }
+
 // Rows returns the record as a two-column table (field, value).
 func (r *RunRecord) Rows() []RecordRow {
 	var out []RecordRow

@@ -24,6 +24,6 @@ Start with the built-in market of a cold-brew coffee maker:
 		Version:       version,
 		SilenceErrors: false,
 	}
-	root.AddCommand(newEstimateCmd(), newDemoCmd(), newColumnsCmd(), newSimulateCmd(), newScreenCmd())
+	root.AddCommand(newEstimateCmd(), newDemoCmd(), newColumnsCmd(), newSimulateCmd(), newScreenCmd(), newReportCmd())
 	return root
 }
