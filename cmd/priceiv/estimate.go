@@ -58,6 +58,19 @@ flags override it.`,
 			if err != nil {
 				return err
 			}
+			// The spec file may hold these too; flags win.
+			if !cmd.Flags().Changed("bootstrap") && spec.Bootstrap > 0 {
+				boot = spec.Bootstrap
+			}
+			if !cmd.Flags().Changed("seed") && spec.Seed != 0 {
+				seed = spec.Seed
+			}
+			if !cmd.Flags().Changed("prices") && spec.Prices != "" {
+				pricesFile = spec.Prices
+				if mf.spec != "" && !strings.HasPrefix(pricesFile, "/") {
+					pricesFile = joinRel(mf.spec, pricesFile)
+				}
+			}
 			switch {
 			case spec.By != "" || spec.Interact != "":
 				t, err := runProducts(panel, spec)
