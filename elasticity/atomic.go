@@ -35,6 +35,9 @@ func WriteFileAtomic(path string, write func(w io.Writer) error) error {
 	if err := bw.Flush(); err != nil {
 		return fmt.Errorf("writing %s: %w", path, err)
 	}
+	if err := f.Sync(); err != nil {
+		return fmt.Errorf("writing %s: %w", path, err)
+	}
 	if err := f.Chmod(0o644); err != nil {
 		return fmt.Errorf("writing %s: %w", path, err)
 	}

@@ -110,6 +110,9 @@ func ClusterBootstrap(m *Moments, dim int, md Model, est Estimator, B int, seed 
 	if G < 2 {
 		return nil, fmt.Errorf("the cluster bootstrap needs at least 2 clusters to resample, but %q has %d: with one cluster every replicate is the full sample and the spread is zero", cb.Dim.Name, G)
 	}
+	if est == GMM {
+		return nil, errors.New("the cluster bootstrap re-estimates k-class models (ols, 2sls, liml, fuller); two-step GMM would need its weight matrix redone in every replicate: bootstrap with --estimator 2sls, or use the GMM estimate's analytic cluster-robust band")
+	}
 	if est == OLS {
 		md = Model{Y: md.Y, Exog: md.X()}
 	}

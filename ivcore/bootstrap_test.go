@@ -263,3 +263,19 @@ func TestClusterBootstrapJointDraws(t *testing.T) {
 		}
 	}
 }
+
+// TestBootstrapRefusesGMM: two-step GMM is not re-estimated per replicate,
+// so the bootstrap must refuse it rather than band another estimator.
+func TestBootstrapRefusesGMM(t *testing.T) {
+	_, _, _, _, cols := mrozMatrices(t)
+	n := len(cols[0])
+	codes := make([]int32, n)
+	for i := range codes {
+		codes[i] = int32(i % 20)
+	}
+	m := Accumulate(cols, []string{"lwage", "educ", "intercept", "exper", "expersq", "motheduc", "fatheduc"}, []ClusterDim{{Name: "g", Codes: codes, G: 20}}, 1)
+	md := Model{Y: 0, Endog: []int{1}, Exog: []int{2, 3, 4}, Instr: []int{5, 6}}
+	if _, err := ClusterBootstrap(m, 0, md, GMM, 99, 1, 1, nil); err == nil || !strings.Contains(err.Error(), "2sls") {
+		t.Errorf("GMM bootstrap: %v", err)
+	}
+}

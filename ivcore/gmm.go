@@ -185,6 +185,11 @@ func TwoStepGMM(m *Moments, md Model, vk VcovKind) (*GMMResult, error) {
 		if err != nil {
 			return nil, err
 		}
+		if len(m.Clusters) == 3 {
+			// Two-way: the sum of terms can be indefinite (Cameron,
+			// Gelbach & Miller 2011, section 2.3).
+			sc, info.Clipped = clipNegative(sc)
+		}
 		if s, err = m.MomentCov(zi, first.resid, Cluster); err != nil {
 			return nil, err
 		}

@@ -1,6 +1,7 @@
 package ivcore
 
 import (
+	"fmt"
 	"math"
 
 	"gonum.org/v1/gonum/mat"
@@ -24,6 +25,9 @@ func (m *Moments) checkVariation(idx []int, roles []string) error {
 		ref := 0.0
 		if m.Scale != nil {
 			ref = m.Scale[a]
+		}
+		if math.IsInf(ss, 0) || math.IsNaN(ss) || math.IsInf(ref, 0) {
+			return fmt.Errorf("%s %q has values too large to square in double precision (sum of squares %g): rescale it (for example to thousands) or check the file for stray huge numbers", roles[i], m.Names[a], ss)
 		}
 		if ss <= 0 || (ref > 0 && ss <= VariationTol*ref) {
 			return &NoVariationError{Column: m.Names[a], Role: roles[i]}

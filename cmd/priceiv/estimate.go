@@ -58,6 +58,9 @@ flags override it.`,
 			if err != nil {
 				return err
 			}
+			if boot < 0 || spec.Bootstrap < 0 {
+				return fmt.Errorf("--bootstrap must be 0 (off) or a number of replicates of at least %d (999 is usual)", elasticity.MinBootstrap)
+			}
 			// The spec file may hold these too; flags win.
 			if !cmd.Flags().Changed("bootstrap") && spec.Bootstrap > 0 {
 				boot = spec.Bootstrap

@@ -102,6 +102,9 @@ func (m *modelFlags) resolve(cmd *cobra.Command, base demand.Spec) (*demand.Spec
 	for i, d := range s.Derive {
 		s.Derive[i] = strings.TrimSpace(d)
 	}
+	if cmd.Flags().Changed("level") && !(s.Level > 0.5 && s.Level < 1) {
+		return nil, fmt.Errorf("--level %v is outside (0.5, 1): give for example 0.95 or 0.9", s.Level)
+	}
 	if err := s.Check(); err != nil {
 		return nil, err
 	}
@@ -121,5 +124,3 @@ func joinRel(specPath, data string) string {
 	}
 	return specPath[:i+1] + data
 }
-
-func errorf(format string, a ...any) error { return fmt.Errorf(format, a...) }
