@@ -26,7 +26,7 @@ type Spec struct {
 	// Delimiter is the field separator: "," (default), ";" or "tab".
 	Delimiter string `yaml:"delimiter,omitempty" json:"delimiter,omitempty"`
 	// Derive lists derived columns, each "name=EXPR", computed in order.
-	Derive []string `yaml:"derive,omitempty" json:"derive,omitempty"`
+	Derive List `yaml:"derive,omitempty" json:"derive,omitempty"`
 	// Where keeps the rows where the expression holds (after Derive).
 	Where string `yaml:"where,omitempty" json:"where,omitempty"`
 	// Unit and Time name the panel keys for lag and diff.
@@ -36,8 +36,8 @@ type Spec struct {
 	// Demand form.
 	Quantity string   `yaml:"quantity,omitempty" json:"quantity,omitempty"`
 	Price    string   `yaml:"price,omitempty" json:"price,omitempty"`
-	Shifters []string `yaml:"shifters,omitempty" json:"shifters,omitempty"`
-	Controls []string `yaml:"controls,omitempty" json:"controls,omitempty"`
+	Shifters List `yaml:"shifters,omitempty" json:"shifters,omitempty"`
+	Controls List `yaml:"controls,omitempty" json:"controls,omitempty"`
 	// Form is log-log (default), semi-log or linear.
 	Form string `yaml:"form,omitempty" json:"form,omitempty"`
 	// Product names the product column (per-product and cross-price
@@ -55,19 +55,19 @@ type Spec struct {
 
 	// General form.
 	Outcome     string   `yaml:"outcome,omitempty" json:"outcome,omitempty"`
-	Endogenous  []string `yaml:"endogenous,omitempty" json:"endogenous,omitempty"`
-	Exogenous   []string `yaml:"exogenous,omitempty" json:"exogenous,omitempty"`
-	Instruments []string `yaml:"instruments,omitempty" json:"instruments,omitempty"`
+	Endogenous  List `yaml:"endogenous,omitempty" json:"endogenous,omitempty"`
+	Exogenous   List `yaml:"exogenous,omitempty" json:"exogenous,omitempty"`
+	Instruments List `yaml:"instruments,omitempty" json:"instruments,omitempty"`
 
 	// ExpectSign declares shifters that lower price, as "name=-" (a cost
 	// shifter is expected to raise it; "name=+" restates the default and
 	// "name=?" drops the check).
-	ExpectSign []string `yaml:"expect_sign,omitempty" json:"expect_sign,omitempty"`
+	ExpectSign List `yaml:"expect_sign,omitempty" json:"expect_sign,omitempty"`
 
 	// FE lists the fixed effects to absorb (id columns).
-	FE []string `yaml:"fe,omitempty" json:"fe,omitempty"`
+	FE List `yaml:"fe,omitempty" json:"fe,omitempty"`
 	// Cluster lists one or two cluster columns.
-	Cluster []string `yaml:"cluster,omitempty" json:"cluster,omitempty"`
+	Cluster List `yaml:"cluster,omitempty" json:"cluster,omitempty"`
 	// Vcov is iid, hc1 or cluster (default: cluster when Cluster is set,
 	// else hc1).
 	Vcov string `yaml:"vcov,omitempty" json:"vcov,omitempty"`
@@ -90,9 +90,39 @@ type Spec struct {
 	// come from the delta method), drawn from Seed.
 	Title     string   `yaml:"title,omitempty" json:"title,omitempty"`
 	Prices    string   `yaml:"prices,omitempty" json:"prices,omitempty"`
-	WhatIfs   []string `yaml:"whatifs,omitempty" json:"whatifs,omitempty"`
+	WhatIfs   List `yaml:"whatifs,omitempty" json:"whatifs,omitempty"`
 	Bootstrap int      `yaml:"bootstrap,omitempty" json:"bootstrap,omitempty"`
 	Seed      uint64   `yaml:"seed,omitempty" json:"seed,omitempty"`
+}
+
+// List is a list of names in a spec file. It reads a YAML sequence
+// ([bean_index, freight_index]) or a single scalar, which is split at
+// commas as the command-line flags are ("bean_index, freight_index").
+type List []string
+
+// UnmarshalYAML reads a sequence or a comma-separated scalar.
+func (l *List) UnmarshalYAML(n *yaml.Node) error {
+	switch n.Kind {
+	case yaml.ScalarNode:
+		*l = nil
+		for _, part := range strings.Split(n.Value, ",") {
+			if p := strings.TrimSpace(part); p != "" {
+				*l = append(*l, p)
+			}
+		}
+		return nil
+	case yaml.SequenceNode:
+		out := make(List, 0, len(n.Content))
+		for _, c := range n.Content {
+			if c.Kind != yaml.ScalarNode {
+				return &SpecError{Line: n.Line, Msg: "a list here holds names, one per item, for example [bean_index, freight_index]"}
+			}
+			out = append(out, c.Value)
+		}
+		*l = out
+		return nil
+	}
+	return &SpecError{Line: n.Line, Msg: "expected a list of names, for example [bean_index, freight_index]"}
 }
 
 // ErrSpec marks a problem with a spec file or its fields.
@@ -157,9 +187,30 @@ func ParseSpec(b []byte, name string) (*Spec, error) {
 			msg += " (known keys: " + strings.Join(SpecKeys(), ", ") + ")"
 			return nil, &SpecError{File: name, Line: line, Msg: msg}
 		}
-		return nil, &SpecError{File: name, Msg: strings.TrimPrefix(err.Error(), "yaml: ")}
+		var se *SpecError
+		if errors.As(err, &se) {
+			se.File = name
+			return nil, se
+		}
+		return nil, &SpecError{File: name, Msg: friendlyYAML(err.Error())}
 	}
 	return &s, nil
+}
+
+var yamlType = regexp.MustCompile(`line (\d+): cannot unmarshal !!(\w+) ` + "`" + `([^` + "`" + `]*)` + "`" + ` into (\S+)`)
+
+// friendlyYAML rewrites the YAML decoder's type errors in words.
+func friendlyYAML(msg string) string {
+	msg = strings.TrimPrefix(msg, "yaml: ")
+	msg = strings.TrimPrefix(msg, "unmarshal errors:\n  ")
+	if m := yamlType.FindStringSubmatch(msg); m != nil {
+		want := map[string]string{"float64": "a number (for example 0.95)", "int": "a whole number", "uint64": "a whole number", "bool": "true or false", "string": "a single name or text"}[m[4]]
+		if want == "" {
+			want = "a different kind of value"
+		}
+		return fmt.Sprintf("line %s: found %q where the key expects %s", m[1], m[3], want)
+	}
+	return msg
 }
 
 // Marshal returns the spec as YAML (for the run record).
