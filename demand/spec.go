@@ -34,10 +34,10 @@ type Spec struct {
 	Time string `yaml:"time,omitempty" json:"time,omitempty"`
 
 	// Demand form.
-	Quantity string   `yaml:"quantity,omitempty" json:"quantity,omitempty"`
-	Price    string   `yaml:"price,omitempty" json:"price,omitempty"`
-	Shifters List `yaml:"shifters,omitempty" json:"shifters,omitempty"`
-	Controls List `yaml:"controls,omitempty" json:"controls,omitempty"`
+	Quantity string `yaml:"quantity,omitempty" json:"quantity,omitempty"`
+	Price    string `yaml:"price,omitempty" json:"price,omitempty"`
+	Shifters List   `yaml:"shifters,omitempty" json:"shifters,omitempty"`
+	Controls List   `yaml:"controls,omitempty" json:"controls,omitempty"`
 	// Form is log-log (default), semi-log or linear.
 	Form string `yaml:"form,omitempty" json:"form,omitempty"`
 	// Product names the product column (per-product and cross-price
@@ -54,10 +54,10 @@ type Spec struct {
 	Cross    bool   `yaml:"cross,omitempty" json:"cross,omitempty"`
 
 	// General form.
-	Outcome     string   `yaml:"outcome,omitempty" json:"outcome,omitempty"`
-	Endogenous  List `yaml:"endogenous,omitempty" json:"endogenous,omitempty"`
-	Exogenous   List `yaml:"exogenous,omitempty" json:"exogenous,omitempty"`
-	Instruments List `yaml:"instruments,omitempty" json:"instruments,omitempty"`
+	Outcome     string `yaml:"outcome,omitempty" json:"outcome,omitempty"`
+	Endogenous  List   `yaml:"endogenous,omitempty" json:"endogenous,omitempty"`
+	Exogenous   List   `yaml:"exogenous,omitempty" json:"exogenous,omitempty"`
+	Instruments List   `yaml:"instruments,omitempty" json:"instruments,omitempty"`
 
 	// ExpectSign declares shifters that lower price, as "name=-" (a cost
 	// shifter is expected to raise it; "name=+" restates the default and
@@ -88,11 +88,11 @@ type Spec struct {
 	// scenario joined by "; ". Bootstrap is the number of cluster
 	// bootstrap replicates of the cross-price matrix (0: none; bands then
 	// come from the delta method), drawn from Seed.
-	Title     string   `yaml:"title,omitempty" json:"title,omitempty"`
-	Prices    string   `yaml:"prices,omitempty" json:"prices,omitempty"`
-	WhatIfs   List `yaml:"whatifs,omitempty" json:"whatifs,omitempty"`
-	Bootstrap int      `yaml:"bootstrap,omitempty" json:"bootstrap,omitempty"`
-	Seed      uint64   `yaml:"seed,omitempty" json:"seed,omitempty"`
+	Title     string `yaml:"title,omitempty" json:"title,omitempty"`
+	Prices    string `yaml:"prices,omitempty" json:"prices,omitempty"`
+	WhatIfs   List   `yaml:"whatifs,omitempty" json:"whatifs,omitempty"`
+	Bootstrap int    `yaml:"bootstrap,omitempty" json:"bootstrap,omitempty"`
+	Seed      uint64 `yaml:"seed,omitempty" json:"seed,omitempty"`
 }
 
 // List is a list of names in a spec file. It reads a YAML sequence
