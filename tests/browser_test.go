@@ -108,12 +108,12 @@ func demoReport(tb testing.TB) *elasticity.ReportData {
 
 // cdpMsg is a DevTools protocol message: a reply (ID set) or an event.
 type cdpMsg struct {
-	ID        int             `json:"id,omitempty"`
-	Method    string          `json:"method,omitempty"`
-	Params    json.RawMessage `json:"params,omitempty"`
-	Result    json.RawMessage `json:"result,omitempty"`
-	SessionID string          `json:"sessionId,omitempty"`
-	Error     *struct {
+	ID       int             `json:"id,omitempty"`
+	Method   string          `json:"method,omitempty"`
+	Params   json.RawMessage `json:"params,omitempty"`
+	Result   json.RawMessage `json:"result,omitempty"`
+	TargetID string          `json:"sessionId,omitempty"`
+	Error    *struct {
 		Code    int    `json:"code"`
 		Message string `json:"message"`
 	} `json:"error,omitempty"`
@@ -210,9 +210,9 @@ func (b *browser) notify() {
 	}
 }
 
-// call sends a command (to a page session when session is set) and waits
+// call sends a command (to a page target when target is set) and waits
 // for its reply.
-func (b *browser) call(ctx context.Context, session, method string, params any, result any) error {
+func (b *browser) call(ctx context.Context, target, method string, params any, result any) error {
 	b.mu.Lock()
 	if b.dead != nil {
 		b.mu.Unlock()
@@ -226,11 +226,11 @@ func (b *browser) call(ctx context.Context, session, method string, params any, 
 	if params == nil {
 		params = struct{}{}
 	}
-	req, err := json.Marshal(map[string]any{"id": id, "method": method, "params": params, "sessionId": session})
+	req, err := json.Marshal(map[string]any{"id": id, "method": method, "params": params, "sessionId": target})
 	if err != nil {
 		return err
 	}
-	if session == "" {
+	if target == "" {
 		req, _ = json.Marshal(map[string]any{"id": id, "method": method, "params": params})
 	}
 	if _, err := b.w.Write(append(req, 0)); err != nil {
@@ -253,12 +253,12 @@ func (b *browser) call(ctx context.Context, session, method string, params any, 
 	}
 }
 
-// waitEvent waits for an event of the page session.
-func (b *browser) waitEvent(ctx context.Context, session, method string) error {
+// waitEvent waits for an event of the page target.
+func (b *browser) waitEvent(ctx context.Context, target, method string) error {
 	for {
 		b.mu.Lock()
 		for _, e := range b.events {
-			if e.Method == method && e.SessionID == session {
+			if e.Method == method && e.TargetID == target {
 				b.mu.Unlock()
 				return nil
 			}
@@ -389,11 +389,13 @@ func TestReportInBrowser(t *testing.T) {
 	if err := b.call(ctx, "", "Target.createTarget", map[string]any{"url": "about:blank"}, &target); err != nil {
 		t.Fatalf("%v\nChromium said:\n%s", err, b.stderr)
 	}
-	var att struct{ SessionID string }
+	var att struct {
+		TargetID string `json:"sessionId"`
+	}
 	if err := b.call(ctx, "", "Target.attachToTarget", map[string]any{"targetId": target.TargetID, "flatten": true}, &att); err != nil {
 		t.Fatal(err)
 	}
-	s := att.SessionID
+	s := att.TargetID
 	for _, m := range []string{"Page.enable", "Runtime.enable", "Log.enable", "Network.enable"} {
 		if err := b.call(ctx, s, m, nil, nil); err != nil {
 			t.Fatal(err)

@@ -90,7 +90,7 @@ func TestDemoOwnElasticityBands(t *testing.T) {
 func TestBandCoverageMonteCarlo(t *testing.T) {
 	// Generated truth, Monte Carlo: across small generated markets
 	// (3 products, 30 stores, 52 weeks) the nominal 95% Wald bands cover
-	// the true elasticities in 91-98% of cases (the range of the issue;
+	// the true elasticities in 91-98% of cases (the accepted range;
 	// binomial sd at 300 bands is 1.3 points). Own elasticities per
 	// product and pooled with interactions; every cross-price matrix
 	// entry. PRICEIV_LONG=1 runs 1000 markets instead of 100.
@@ -153,8 +153,13 @@ func TestBandCoverageMonteCarlo(t *testing.T) {
 		rate := float64(tl.hit) / float64(tl.all)
 		mz := tl.z / float64(tl.all)
 		t.Logf("%s: coverage %d/%d = %.3f over %d markets; z mean %.3f, sd %.3f", tl.name, tl.hit, tl.all, rate, reps, mz, math.Sqrt(tl.zz/float64(tl.all)-mz*mz))
-		if !testing.Short() && (rate < 0.91 || rate > 0.98) {
-			t.Errorf("%s: 95%% bands cover the truth %.1f%% of the time, want 91-98%%", tl.name, 100*rate)
+		lo, hi := 0.91, 0.98
+		if testing.Short() {
+			// 30 markets: a looser range, about three binomial sd.
+			lo, hi = 0.85, 1.0
+		}
+		if rate < lo || rate > hi {
+			t.Errorf("%s: 95%% bands cover the truth %.1f%% of the time, want %.0f-%.0f%%", tl.name, 100*rate, 100*lo, 100*hi)
 		}
 	}
 }
