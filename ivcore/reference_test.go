@@ -137,13 +137,14 @@ func TestStockWatsonCigarettes(t *testing.T) {
 		other      string
 		o, ose     float64
 		firstStage float64 // robust first-stage F, as printed (0: not printed)
+		source     string
 	}{
-		{y95, nil, []string{"SalesTax"}, -1.08, 0.32, "intercept", 9.72, 1.53, 0},
-		{y95, []string{"lnInc"}, []string{"SalesTax"}, -1.14, 0.37, "lnInc", 0.21, 0.31, 0},
-		{y95, []string{"lnInc"}, []string{"SalesTax", "CigTax"}, -1.28, 0.25, "lnInc", 0.28, 0.25, 0},
-		{d, []string{"lnInc"}, []string{"SalesTax"}, -0.94, 0.21, "lnInc", 0.53, 0.34, 33.70},
-		{d, []string{"lnInc"}, []string{"CigTax"}, -1.34, 0.23, "lnInc", 0.43, 0.30, 107.20},
-		{d, []string{"lnInc"}, []string{"SalesTax", "CigTax"}, -1.20, 0.20, "lnInc", 0.46, 0.31, 88.60},
+		{y95, nil, []string{"SalesTax"}, -1.08, 0.32, "intercept", 9.72, 1.53, 0, "Stock & Watson ch. 12, 1995 cross-section, SalesTax (values recalled, re-derived from the file: reference-data README)"},
+		{y95, []string{"lnInc"}, []string{"SalesTax"}, -1.14, 0.37, "lnInc", 0.21, 0.31, 0, "Stock & Watson ch. 12, 1995, lnInc control, SalesTax (recalled, re-derived)"},
+		{y95, []string{"lnInc"}, []string{"SalesTax", "CigTax"}, -1.28, 0.25, "lnInc", 0.28, 0.25, 0, "Stock & Watson ch. 12, 1995, SalesTax and CigTax (recalled, re-derived)"},
+		{d, []string{"lnInc"}, []string{"SalesTax"}, -0.94, 0.21, "lnInc", 0.53, 0.34, 33.70, "Stock & Watson ch. 12, 10-year differences, d SalesTax (recalled, re-derived)"},
+		{d, []string{"lnInc"}, []string{"CigTax"}, -1.34, 0.23, "lnInc", 0.43, 0.30, 107.20, "Stock & Watson ch. 12, 10-year differences, d CigTax (recalled, re-derived)"},
+		{d, []string{"lnInc"}, []string{"SalesTax", "CigTax"}, -1.20, 0.20, "lnInc", 0.46, 0.31, 88.60, "Stock & Watson ch. 12, 10-year differences, both taxes (recalled, re-derived)"},
 	} {
 		f := fitCols(t, test.data, "lnQ", []string{"lnP"}, test.exog, test.instr, TSLS, HC1)
 		if f.N != 48 {
@@ -151,7 +152,7 @@ func TestStockWatsonCigarettes(t *testing.T) {
 		}
 		j := f.Index("lnP")
 		if round(f.Coef[j], 2) != test.e || round(f.SE(j), 2) != test.se {
-			t.Errorf("%d: elasticity %.4f (%.4f), want %.2f (%.2f)", i, f.Coef[j], f.SE(j), test.e, test.se)
+			t.Errorf("%d: elasticity %.4f (%.4f), want %.2f (%.2f) [%s]", i, f.Coef[j], f.SE(j), test.e, test.se, test.source)
 		}
 		o := f.Index(test.other)
 		if round(f.Coef[o], 2) != test.o || round(f.SE(o), 2) != test.ose {
@@ -199,11 +200,13 @@ func TestWooldridgeMroz(t *testing.T) {
 		instr       []string
 		est         Estimator
 		want        []coef
+		source      string
 	}{
-		{"15.1 OLS", nil, []string{"educ"}, nil, OLS, []coef{{"educ", 0.109, 0.014, 3}}},
-		{"15.1 IV", []string{"educ"}, nil, []string{"fatheduc"}, TSLS, []coef{{"educ", 0.059, 0.035, 3}, {"intercept", 0.441, 0.446, 3}}},
+		{"15.1 OLS", nil, []string{"educ"}, nil, OLS, []coef{{"educ", 0.109, 0.014, 3}}, "Wooldridge, Introductory Econometrics, example 15.1 (recalled, re-derived: reference-data README)"},
+		{"15.1 IV", []string{"educ"}, nil, []string{"fatheduc"}, TSLS, []coef{{"educ", 0.059, 0.035, 3}, {"intercept", 0.441, 0.446, 3}}, "Wooldridge, example 15.1, IV with fatheduc (recalled, re-derived)"},
 		{"15.5 2SLS", []string{"educ"}, []string{"exper", "expersq"}, []string{"motheduc", "fatheduc"}, TSLS, []coef{
-			{"educ", 0.0614, 0.0314, 4}, {"exper", 0.0442, 0.0134, 4}, {"expersq", -0.0009, 0.0004, 4}, {"intercept", 0.0481, 0.4003, 4}}},
+			{"educ", 0.0614, 0.0314, 4}, {"exper", 0.0442, 0.0134, 4}, {"expersq", -0.0009, 0.0004, 4}, {"intercept", 0.0481, 0.4003, 4}},
+			"Wooldridge, example 15.5 (recalled, re-derived)"},
 	} {
 		f := fitCols(t, cols, "lwage", test.endog, test.exog, test.instr, test.est, IID)
 		if f.N != 428 {
@@ -212,7 +215,7 @@ func TestWooldridgeMroz(t *testing.T) {
 		for _, c := range test.want {
 			j := f.Index(c.name)
 			if round(f.Coef[j], c.digits) != c.b || round(f.SE(j), c.digits) != c.se {
-				t.Errorf("%d %s: %s = %.5f (%.5f), want %v (%v)", i, test.what, c.name, f.Coef[j], f.SE(j), c.b, c.se)
+				t.Errorf("%d %s: %s = %.5f (%.5f), want %v (%v) [%s]", i, test.what, c.name, f.Coef[j], f.SE(j), c.b, c.se, test.source)
 			}
 		}
 	}

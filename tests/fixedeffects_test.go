@@ -207,20 +207,21 @@ func colsMat(c [][]float64) *mat.Dense {
 // Stock & Watson, Introduction to Econometrics, appendix tables 2 and 3).
 func TestCriticalValues(t *testing.T) {
 	for _, test := range []struct {
-		what string
-		got  float64
-		want float64
-		tol  float64
+		what   string
+		got    float64
+		want   float64
+		tol    float64
+		source string
 	}{
-		{"t(30) 0.975", ivcore.Critical(0.95, 30), 2.042, 5e-4},
-		{"normal 0.975", ivcore.Critical(0.95, 0), 1.960, 5e-4},
-		{"t(10) 0.995", ivcore.Critical(0.99, 10), 3.169, 5e-4},
-		{"chi-square(1) survival at 3.841", ivcore.ChiSquaredSurvival(3.841, 1), 0.05, 5e-5},
-		{"chi-square(2) survival at 5.991", ivcore.ChiSquaredSurvival(5.991, 2), 0.05, 5e-5},
-		{"F(2,30) survival at 3.32", ivcore.FSurvival(3.32, 2, 30), 0.05, 5e-4},
+		{"t(30) 0.975", ivcore.Critical(0.95, 30), 2.042, 5e-4, "t table (e.g. Stock & Watson appendix table 2), from memory"},
+		{"normal 0.975", ivcore.Critical(0.95, 0), 1.960, 5e-4, "standard normal table, common practice"},
+		{"t(10) 0.995", ivcore.Critical(0.99, 10), 3.169, 5e-4, "t table, from memory"},
+		{"chi-square(1) survival at 3.841", ivcore.ChiSquaredSurvival(3.841, 1), 0.05, 5e-5, "chi-square table (e.g. Stock & Watson appendix table 3), from memory"},
+		{"chi-square(2) survival at 5.991", ivcore.ChiSquaredSurvival(5.991, 2), 0.05, 5e-5, "chi-square table, from memory"},
+		{"F(2,30) survival at 3.32", ivcore.FSurvival(3.32, 2, 30), 0.05, 5e-4, "F table, 5% point, from memory"},
 	} {
 		if math.Abs(test.got-test.want) > test.tol {
-			t.Errorf("%s = %.5f, want %.3f", test.what, test.got, test.want)
+			t.Errorf("%s = %.5f, want %.3f (%s)", test.what, test.got, test.want, test.source)
 		}
 	}
 }
