@@ -460,8 +460,17 @@ func (c *ctx) excluded(coef []float64) []float64 {
 
 // waldF returns the Wald F of H0: g = 0 with covariance v, divided by q
 // (q = len(g) unless given), with its p-value from F(q, DF).
+//
+// When the covariance is singular (for example fewer clusters than
+// shifters, or an indefinite two-way sum) only its positive part is
+// inverted, and the numerator degrees of freedom drop to its rank, with a
+// warning.
 func (c *ctx) waldF(g []float64, v mat.Symmetric, q int) (f, p float64) {
-	w := quadInv(v, g)
+	w, rank := quadInvRank(v, g)
+	if rank > 0 && rank < len(g) && rank < q {
+		c.warn("the covariance of %d tested coefficients has rank %d only (for example fewer clusters than shifters): the Wald F uses %d numerator degrees of freedom", len(g), rank, rank)
+		q = rank
+	}
 	f = w / float64(q)
 	return f, ivcore.FSurvival(f, q, c.bank.info.DF)
 }

@@ -98,13 +98,21 @@ func scaledInverse(s mat.Symmetric) (*mat.SymDense, bool) {
 // negligible eigenvalues are dropped (a pseudo-inverse on the positive
 // part); the result is NaN when nothing is left.
 func quadInv(v mat.Symmetric, g []float64) float64 {
+	s, _ := quadInvRank(v, g)
+	return s
+}
+
+// quadInvRank is quadInv that also returns the rank of the part of V
+// used: len(g) when V is positive definite, fewer when eigenvalues were
+// dropped.
+func quadInvRank(v mat.Symmetric, g []float64) (float64, int) {
 	if inv, ok := scaledInverse(v); ok {
 		gv := mat.NewVecDense(len(g), append([]float64(nil), g...))
-		return mat.Inner(gv, inv, gv)
+		return mat.Inner(gv, inv, gv), len(g)
 	}
 	var es mat.EigenSym
 	if !es.Factorize(v, true) {
-		return math.NaN()
+		return math.NaN(), 0
 	}
 	vals := es.Values(nil)
 	var vec mat.Dense
@@ -114,20 +122,21 @@ func quadInv(v mat.Symmetric, g []float64) float64 {
 		top = math.Max(top, l)
 	}
 	if !(top > 0) {
-		return math.NaN()
+		return math.NaN(), 0
 	}
-	s := 0.0
+	s, rank := 0.0, 0
 	for k, l := range vals {
 		if l <= 1e-12*top {
 			continue
 		}
+		rank++
 		p := 0.0
 		for i, gi := range g {
 			p += vec.At(i, k) * gi
 		}
 		s += p * p / l
 	}
-	return s
+	return s, rank
 }
 
 // minGeneralEig returns the smallest eigenvalue of B⁻¹A for symmetric A
