@@ -36,10 +36,21 @@ func (r *PricingReport) Cautions() []string {
 		c = append(c, s.Assumption)
 		c = append(c, s.Notes...)
 	}
+	// Each withheld margin gets its own sentence; the usual reasons are
+	// listed once, after them.
+	reasons := ""
 	for _, m := range r.Markups {
-		if m.Caution != "" {
-			c = append(c, m.Caution)
+		if m.Caution == "" {
+			continue
 		}
+		head, tail, found := strings.Cut(m.Caution, " Usual reasons for such an estimate:")
+		c = append(c, head)
+		if found {
+			reasons = "Usual reasons for an estimate that is not clearly elastic:" + tail
+		}
+	}
+	if reasons != "" {
+		c = append(c, reasons)
 	}
 	if r.Line != nil {
 		for _, l := range r.Line.Rows {

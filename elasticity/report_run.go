@@ -137,6 +137,9 @@ func RunReport(in ReportInput) (*ReportData, error) {
 	if r.Title == "" {
 		r.Title = "Price response and margins"
 	}
+	if err := checkWhatIfs(in); err != nil {
+		return nil, err
+	}
 	for _, s := range []*demand.Spec{in.Pooled, in.ByProduct, in.Cross} {
 		if s != nil && s.Level > 0 {
 			r.Level = s.Level
@@ -1078,6 +1081,42 @@ func (r *ReportData) whatIfs(in ReportInput, est *Estimates) error {
 // parseScenario reads one what-if: a single move, or several joined by
 // "; " (a product name may itself hold a semicolon only in a one-move
 // scenario).
+// checkWhatIfs refuses configured what-ifs that name products the panel
+// does not have, before any model is fitted: a typo in the spec must not
+// quietly leave the section out.
+func checkWhatIfs(in ReportInput) error {
+	if len(in.WhatIfs) == 0 {
+		return nil
+	}
+	col := ""
+	for _, s := range []*demand.Spec{in.ByProduct, in.Cross, in.Pooled} {
+		if s == nil {
+			continue
+		}
+		for _, c := range []string{s.By, s.Interact, s.Product} {
+			if c != "" && in.Panel.Has(c) {
+				col = c
+			}
+		}
+		if col != "" {
+			break
+		}
+	}
+	if col == "" {
+		return nil
+	}
+	_, products, err := in.Panel.IDs(col)
+	if err != nil {
+		return err
+	}
+	for _, sc := range in.WhatIfs {
+		if _, err := parseScenario(sc, products); err != nil {
+			return fmt.Errorf("whatifs: %w", err)
+		}
+	}
+	return nil
+}
+
 func parseScenario(s string, products []string) ([]Change, error) {
 	if c, err := ParseChange(s, products); err == nil {
 		return []Change{c}, nil

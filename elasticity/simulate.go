@@ -278,6 +278,11 @@ func ratios(E *mat.Dense, e []float64, lr []float64, f []float64) {
 	}
 }
 
+// MaxMoveFactor bounds a simulated price move: the new price must lie
+// within this factor of the current one (above and below). Moves beyond it
+// are refused rather than extrapolated.
+const MaxMoveFactor = 3
+
 // Simulate predicts the effect of the price changes on every product of
 // the line under constant elasticities:
 //
@@ -296,7 +301,8 @@ func ratios(E *mat.Dense, e []float64, lr []float64, f []float64) {
 // elasticities, so its bands are symmetric; bootstrap bands need not be.
 //
 // Simulate returns an error for no changes, a product changed twice, or a
-// missing or non-positive current price; it warns when a new price lies
+// missing or non-positive current price, or a move beyond MaxMoveFactor;
+// it warns when a new price lies
 // outside the observed range. It panics if the lengths of base differ
 // from the number of products.
 func Simulate(est *Estimates, base Baseline, changes []Change) (*Simulation, error) {
@@ -340,6 +346,9 @@ func Simulate(est *Estimates, base Baseline, changes []Change) (*Simulation, err
 	lr := make([]float64, n)
 	for j, c := range by {
 		newP[j] = c.Apply(base.Price[j])
+		if ratio := newP[j] / base.Price[j]; !(ratio >= 1.0/MaxMoveFactor && ratio <= MaxMoveFactor) {
+			return nil, fmt.Errorf("%q moves the price of %q from %.4g to %.4g (%.3g times): a constant elasticity cannot be carried that far from the prices in the data; give a move within a factor %g of the current price", c.Text, c.Product, base.Price[j], newP[j], ratio, float64(MaxMoveFactor))
+		}
 		lr[j] = math.Log(newP[j] / base.Price[j])
 	}
 

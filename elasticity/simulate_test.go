@@ -401,3 +401,17 @@ func TestWritePricing(t *testing.T) {
 		t.Error("unknown format accepted")
 	}
 }
+
+// TestSimulateRefusesFarMoves: a move beyond MaxMoveFactor is refused
+// rather than extrapolated.
+func TestSimulateRefusesFarMoves(t *testing.T) {
+	est := &Estimates{Products: []string{"Mocha Can 250ml"}, E: mat.NewDense(1, 1, []float64{-2}), SE: mat.NewDense(1, 1, []float64{0.1}), Level: 0.95}
+	base := Baseline{Price: []float64{2.69}}
+	c, err := ParseChange("Mocha Can 250ml=+400%", est.Products)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := Simulate(est, base, []Change{c}); err == nil || !strings.Contains(err.Error(), "factor 3") {
+		t.Errorf("a five-fold price: %v", err)
+	}
+}

@@ -258,14 +258,14 @@ func tblEffF(e demand.ProductElasticity) string {
 func writeProductText(w io.Writer, t *demand.ProductTable) error {
 	var b strings.Builder
 	lv := pct(t.Level)
-	b.WriteString("OWN-PRICE ELASTICITY BY PRODUCT\n")
+	b.WriteString("OWN-PRICE ELASTICITY BY " + strings.ToUpper(tblColumn(t)) + "\n")
 	fmt.Fprintf(&b, "  %s\n", tblMode(t))
 	fmt.Fprintf(&b, "  %s demand; %s; %s bands\n\n", t.Form, t.VcovDetail, lv)
-	width := len("product")
+	width := len(tblColumn(t))
 	for _, e := range t.Elasticities {
 		width = max(width, len([]rune(e.Product)))
 	}
-	fmt.Fprintf(&b, "  %3s  %-*s  %7s  %10s  %-20s  %-22s  %9s  %7s\n", "#", width, "product", "rows", "elasticity",
+	fmt.Fprintf(&b, "  %3s  %-*s  %7s  %10s  %-20s  %-22s  %9s  %7s\n", "#", width, tblColumn(t), "rows", "elasticity",
 		"Wald band", "Anderson-Rubin band", "1st-st. F", "eff. F")
 	for i, e := range t.Elasticities {
 		if e.Failed {
@@ -335,6 +335,15 @@ func writeProductText(w io.Writer, t *demand.ProductTable) error {
 	}
 	_, err := io.WriteString(w, b.String())
 	return err
+}
+
+// tblColumn names what the rows of a per-product table are (the product
+// column, or another column given to --by / --interact).
+func tblColumn(t *demand.ProductTable) string {
+	if t.ProductColumn == "" {
+		return "product"
+	}
+	return t.ProductColumn
 }
 
 // tblAlpha returns the test level 1 - level as a percentage, without
