@@ -3,7 +3,6 @@ package demand
 import (
 	"bytes"
 	"fmt"
-	"io"
 	"math"
 	"os"
 	"runtime"
@@ -22,14 +21,23 @@ type ReadOptions struct {
 	Workers int
 }
 
-// ReadCSVFile reads the whole file at path into memory and parses it with
-// ReadCSV, using path as the source name in errors. The file is only read.
+// ReadCSVFile reads the panel file at path, using path as the source name
+// in errors, with the same result as ReadCSV on the file's bytes. The file
+// is only read.
 //
-// Before reading, the memory the file and its columns need (estimated
-// from the file's size and its first lines) is compared with the memory
-// available; a file that cannot fit gives a *MemoryError (wrapping
-// ErrTooLarge) that says how large it is, instead of running out of
-// memory part way.
+// A file without quote characters is read in blocks straight into the
+// final columns, without holding the whole file in memory: one pass counts
+// the lines, so that each column is allocated once at its exact size; a
+// second splits the file into one byte range per worker at line
+// boundaries and parses the ranges in parallel. A file with quotes (which
+// may enclose line breaks) or with blank lines between records is read
+// whole and parsed by ReadCSV's careful path instead; the result is the
+// same, only the memory used differs.
+//
+// Before parsing, the memory the columns need (and, for the careful path,
+// the file) is compared with the memory available; a file that cannot fit
+// gives a *MemoryError (wrapping ErrTooLarge) that says how large it is,
+// instead of running out of memory part way.
 func ReadCSVFile(path string, opts ReadOptions) (*Panel, error) {
 	f, err := os.Open(path)
 	if err != nil {
@@ -44,20 +52,23 @@ func ReadCSVFile(path string, opts ReadOptions) (*Panel, error) {
 		return nil, fmt.Errorf("demand: reading panel: %s is a folder; name the panel file", path)
 	}
 	size := st.Size()
-	head := make([]byte, min(size, 1<<20))
-	k, err := io.ReadFull(f, head)
-	if err != nil && err != io.ErrUnexpectedEOF {
-		return nil, fmt.Errorf("demand: reading panel: %w", err)
+	p, err := readCSVFast(csvFile{r: f, n: size}, path, opts)
+	if err != errCSVCareful {
+		return p, err
 	}
-	if err := checkMemory(path, size, csvMemoryNeed(size, head[:k]), "the file and its columns"); err != nil {
+	head := make([]byte, min(size, 1<<20))
+	k, err := f.ReadAt(head, 0)
+	if k < len(head) {
+		return nil, fmt.Errorf("demand: reading panel %s: %w", path, err)
+	}
+	if err := checkMemory(path, size, csvMemoryNeed(size, head), "the file and its columns"); err != nil {
 		return nil, err
 	}
 	data := make([]byte, size)
-	copy(data, head[:k])
-	if _, err := io.ReadFull(f, data[k:]); err != nil {
+	if k, err := f.ReadAt(data, 0); k < len(data) {
 		return nil, fmt.Errorf("demand: reading panel %s: %w", path, err)
 	}
-	return ReadCSV(data, path, opts)
+	return readCSVCareful(data, path, opts)
 }
 
 // ReadCSV parses a delimited text panel held in data. source names the data
@@ -80,23 +91,52 @@ func ReadCSVFile(path string, opts ReadOptions) (*Panel, error) {
 // strconv.ParseFloat(cell, 64) without error (missing cells become NaN);
 // otherwise it is a text column whose levels are in order of first
 // appearance (missing cells have code -1), and FirstNonNumber and
-// NumericCells tell where it stopped being numeric.
+// NumericCells tell where it stopped being numeric. Numbers are the
+// float64 values strconv.ParseFloat gives, bit for bit: a plain decimal of
+// at most 19 digits whose digits, read as an integer m, satisfy m ≤ 2^53,
+// with at most 22 digits after the point, is computed as m/10^d, which is
+// correctly rounded because both operands are exact (Clinger 1990, "How
+// to read floating point numbers accurately", PLDI), and any other text
+// goes to strconv.ParseFloat.
 //
 // Problems in the text give a *ParseError with the 1-based line and field
 // that wraps ErrHeader, ErrQuote or ErrFieldCount. When several records are
 // bad, the error of the earliest one is returned. A file with a header and
 // no records gives a panel with N = 0 and no error.
 //
-// Records are found in one pass over data, then split into opts.Workers
-// contiguous ranges that are parsed in parallel straight into the final
-// columns; the result is the same for any number of workers.
+// Data without quote characters is split into opts.Workers byte ranges at
+// line boundaries, parsed in parallel straight into the final columns
+// (lines are counted first, so each column is allocated once). Data with
+// quotes takes a careful path: records are found in one pass that tracks
+// quoting, then split into contiguous ranges of records parsed in
+// parallel. Both give the same panel, for any number of workers.
 func ReadCSV(data []byte, source string, opts ReadOptions) (*Panel, error) {
+	p, err := readCSVFast(csvMem(data), source, opts)
+	if err != errCSVCareful {
+		return p, err
+	}
+	return readCSVCareful(data, source, opts)
+}
+
+// csvDelimiter checks and defaults the delimiter of opts.
+func csvDelimiter(opts ReadOptions, source string) (byte, error) {
 	delim := opts.Delimiter
 	if delim == 0 {
 		delim = ','
 	}
 	if delim == '"' || delim == '\r' || delim == '\n' {
-		return nil, fmt.Errorf("demand: %s: delimiter %q cannot be used; choose ',', ';' or a tab", source, delim)
+		return 0, fmt.Errorf("demand: %s: delimiter %q cannot be used; choose ',', ';' or a tab", source, delim)
+	}
+	return delim, nil
+}
+
+// readCSVCareful is ReadCSV's path for data that may hold quotes: the
+// record offsets are found first, tracking quoting, then ranges of records
+// are parsed in parallel.
+func readCSVCareful(data []byte, source string, opts ReadOptions) (*Panel, error) {
+	delim, err := csvDelimiter(opts, source)
+	if err != nil {
+		return nil, err
 	}
 	data = bytes.TrimPrefix(data, csvBOM)
 	r := &csvReader{data: data, source: source, delim: delim}
@@ -113,49 +153,72 @@ func ReadCSV(data []byte, source string, opts ReadOptions) (*Panel, error) {
 	}
 	workers = max(1, min(workers, n))
 
-	kinds := r.sniff()
-	r.num = make([][]float64, nc)
-	r.codes = make([][]int32, nc)
-	for j, k := range kinds {
-		if k == csvNum {
-			r.num[j] = make([]float64, n)
-		} else {
-			r.codes[j] = make([]int32, n)
-		}
-	}
+	kinds := r.sniff(r.data, r.starts)
+	r.alloc(kinds, n)
 	text := make([]*TextColumn, nc)
-	failed, err := r.parse(kinds, workers, text)
+	run := func(kinds []csvKind) ([]bool, error) {
+		ws := make([]*csvWorker, workers)
+		for k := range ws {
+			ws[k] = newCSVWorker(r, kinds, n*k/workers, n*(k+1)/workers)
+		}
+		runCSVWorkers(ws, (*csvWorker).run)
+		return r.finish(ws, kinds, text)
+	}
+	failed, err := run(kinds)
 	if err != nil {
 		return nil, err
 	}
-	// A column guessed numeric from its first rows met text further
-	// down: parse it again as text, so that no cell is lost.
-	redo := make([]csvKind, nc)
-	again := false
-	for j, f := range failed {
-		if f {
-			redo[j] = csvText
-			r.num[j] = nil
-			r.codes[j] = make([]int32, n)
-			again = true
-		}
-	}
-	if again {
-		if _, err := r.parse(redo, workers, text); err != nil {
+	if redo := r.redoKinds(failed, n); redo != nil {
+		if _, err := run(redo); err != nil {
 			return nil, err
 		}
 	}
+	return r.panel(n, text), nil
+}
 
-	p := NewPanel(source, n)
+// alloc allocates the columns of n rows for kinds.
+func (r *csvReader) alloc(kinds []csvKind, n int) {
+	r.num = make([][]float64, len(kinds))
+	r.codes = make([][]int32, len(kinds))
+	for j, k := range kinds {
+		if k == csvNum {
+			r.num[j] = makeFloats(n)
+		} else {
+			r.codes[j] = makeInt32s(n)
+		}
+	}
+}
+
+// redoKinds returns the kinds for parsing again, as text, the columns
+// guessed numeric from their first rows that met text further down (so
+// that no cell is lost), or nil when there are none.
+func (r *csvReader) redoKinds(failed []bool, n int) []csvKind {
+	var redo []csvKind
+	for j, f := range failed {
+		if f {
+			if redo == nil {
+				redo = make([]csvKind, len(failed))
+			}
+			redo[j] = csvText
+			r.num[j] = nil
+			r.codes[j] = makeInt32s(n)
+		}
+	}
+	return redo
+}
+
+// panel assembles the parsed columns.
+func (r *csvReader) panel(n int, text []*TextColumn) *Panel {
+	p := NewPanel(r.source, n)
 	p.Lines = r.lines
 	for j, name := range r.names {
 		if text[j] != nil {
 			p.AddText(name, text[j])
 		} else {
-			p.AddNum(name, r.num[j])
+			p.AddNum(name, r.num[j][:n:n])
 		}
 	}
-	return p, nil
+	return p
 }
 
 var csvBOM = []byte{0xEF, 0xBB, 0xBF}
@@ -292,17 +355,18 @@ func (r *csvReader) blank(b []byte) bool {
 	return true
 }
 
-// sniff guesses the column types from the first records: a column is
-// guessed numeric unless one of its non-empty cells there fails to parse.
-func (r *csvReader) sniff() []csvKind {
+// sniff guesses the column types from the first records of data, which
+// start at the offsets in starts: a column is guessed numeric unless one
+// of its non-empty cells there fails to parse.
+func (r *csvReader) sniff(data []byte, starts []int) []csvKind {
 	nc := len(r.names)
 	kinds := make([]csvKind, nc)
 	for j := range kinds {
 		kinds[j] = csvNum
 	}
-	s := csvScanner{data: r.data, delim: r.delim}
-	for i := range min(len(r.starts), csvSniffRows) {
-		pos := r.starts[i]
+	s := csvScanner{data: data, delim: r.delim}
+	for i := range min(len(starts), csvSniffRows) {
+		pos := starts[i]
 		for j := range nc {
 			cell, next, term, bad := s.field(pos)
 			if bad {
@@ -322,16 +386,10 @@ func (r *csvReader) sniff() []csvKind {
 	return kinds
 }
 
-// parse parses every record into the columns selected by kinds, using the
-// given number of workers. Text columns are finished into text. It returns
-// the numeric columns that met a cell that is not a number.
-func (r *csvReader) parse(kinds []csvKind, workers int, text []*TextColumn) (failed []bool, err error) {
-	n := len(r.starts)
-	ws := make([]*csvWorker, workers)
-	for k := range ws {
-		ws[k] = newCSVWorker(r, kinds, n*k/workers, n*(k+1)/workers)
-	}
-	runCSVWorkers(ws, (*csvWorker).run)
+// finish checks the workers that parsed the columns selected by kinds,
+// merges their text levels in file order into text, and returns the
+// numeric columns that met a cell that is not a number.
+func (r *csvReader) finish(ws []*csvWorker, kinds []csvKind, text []*TextColumn) (failed []bool, err error) {
 	for _, w := range ws {
 		// Workers cover contiguous ranges in file order and stop at
 		// their first error, so the first worker with an error holds
@@ -445,6 +503,14 @@ type csvWorker struct {
 	remap  [][]int32 // per column, local code -> merged code; nil if identity
 	sc     csvScanner
 	err    *ParseError
+
+	// Fast path only: the bytes [from, to) of src hold the rows.
+	src       csvSource
+	from, to  int64
+	ioErr     error // reading the source failed
+	blank     bool  // a blank line was skipped
+	attempted bool  // a record was started
+	holes     bool  // a record follows a blank line
 }
 
 func newCSVWorker(r *csvReader, kinds []csvKind, lo, hi int) *csvWorker {
@@ -465,6 +531,7 @@ func newCSVWorker(r *csvReader, kinds []csvKind, lo, hi int) *csvWorker {
 	return w
 }
 
+// run parses the records lo..hi-1 found by findRecords (careful path).
 func (w *csvWorker) run() {
 	r := w.r
 	// A local scanner keeps the per-record writes to its line off the
@@ -472,58 +539,117 @@ func (w *csvWorker) run() {
 	sc := w.sc
 	s := &sc
 	defer func() { w.sc = sc }()
+	for i := w.lo; i < w.hi; i++ {
+		s.line = r.line(i)
+		if _, ok := w.record(s, r.starts[i], i, s.line); !ok {
+			return
+		}
+	}
+}
+
+// record parses the record at offset pos of s.data, on line line, into
+// row i, and returns the offset after it. On a problem it sets w.err and
+// returns false.
+func (w *csvWorker) record(s *csvScanner, pos, i, line int) (int, bool) {
+	r := w.r
 	kinds := w.kinds
 	nc := len(kinds)
-	nan := math.NaN()
-	for i := w.lo; i < w.hi; i++ {
-		pos := r.starts[i]
-		s.line = r.line(i)
-		for j := 0; j < nc; j++ {
-			cell, next, term, bad := s.field(pos)
-			if bad {
-				w.err = r.quoteError(s, j)
-				return
+	for j := 0; j < nc; j++ {
+		cell, next, term, bad := s.field(pos)
+		if bad {
+			w.err = r.quoteError(s, j)
+			return 0, false
+		}
+		pos = next
+		if term != csvDelim && j < nc-1 {
+			w.err = r.countError(line, j+1, nc)
+			return 0, false
+		}
+		if term == csvDelim && j == nc-1 {
+			w.err = r.tooMany(s, next, line, nc)
+			return 0, false
+		}
+		switch kinds[j] {
+		case csvNum:
+			if len(cell) == 0 {
+				r.num[j][i] = math.NaN()
+				continue
 			}
-			pos = next
-			if term != csvDelim && j < nc-1 {
-				w.err = r.countError(r.line(i), j+1, nc)
-				return
-			}
-			if term == csvDelim && j == nc-1 {
-				w.err = r.tooMany(s, next, r.line(i), nc)
-				return
-			}
-			switch kinds[j] {
-			case csvNum:
-				if len(cell) == 0 {
-					r.num[j][i] = nan
-					continue
-				}
-				v, err := strconv.ParseFloat(csvView(cell), 64)
-				if err != nil {
+			v, ok := csvParseFloat(cell)
+			if !ok {
+				var err error
+				if v, err = strconv.ParseFloat(csvView(cell), 64); err != nil {
 					w.failed[j] = true
 					kinds[j] = csvSkip
 					continue
 				}
-				r.num[j][i] = v
-			case csvText:
-				if len(cell) == 0 {
-					r.codes[j][i] = -1
-					continue
-				}
-				t := w.text[j]
-				c, ok := t.m[string(cell)]
-				if !ok {
-					str := string(cell)
-					c = int32(len(t.levels))
-					t.m[str] = c
-					t.levels = append(t.levels, str)
-					t.first = append(t.first, i)
-				}
-				r.codes[j][i] = c
 			}
+			r.num[j][i] = v
+		case csvText:
+			if len(cell) == 0 {
+				r.codes[j][i] = -1
+				continue
+			}
+			t := w.text[j]
+			c, ok := t.m[string(cell)]
+			if !ok {
+				str := string(cell)
+				c = int32(len(t.levels))
+				t.m[str] = c
+				t.levels = append(t.levels, str)
+				t.first = append(t.first, i)
+			}
+			r.codes[j][i] = c
 		}
 	}
+	return pos, true
+}
+
+// csvParseFloat parses a plain decimal [+-]digits[.digits] of at most 19
+// digits whose digits m, read as an integer, are at most 2^53, with at
+// most 22 digits after the point, as m/10^d. Both operands are exact in
+// float64, so the quotient is the correctly rounded value, the one
+// strconv.ParseFloat returns (Clinger 1990). ok is false for any other
+// text, which the caller parses with strconv.ParseFloat.
+func csvParseFloat(b []byte) (v float64, ok bool) {
+	i := 0
+	neg := false
+	if len(b) > 0 && (b[0] == '-' || b[0] == '+') {
+		neg = b[0] == '-'
+		i = 1
+	}
+	var m uint64
+	digits, frac := 0, 0
+	dot := false
+	for ; i < len(b); i++ {
+		c := b[i]
+		switch {
+		case c >= '0' && c <= '9':
+			digits++
+			if digits > 19 {
+				return 0, false
+			}
+			m = m*10 + uint64(c-'0')
+			if dot {
+				frac++
+			}
+		case c == '.' && !dot:
+			dot = true
+		default:
+			return 0, false
+		}
+	}
+	if digits == 0 || m > 1<<53 || frac > 22 {
+		return 0, false
+	}
+	v = float64(m)
+	if frac > 0 {
+		v /= pow10[frac]
+	}
+	if neg {
+		v = -v
+	}
+	return v, true
 }
 
 func (w *csvWorker) applyRemap() {

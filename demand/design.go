@@ -3,6 +3,7 @@ package demand
 import (
 	"fmt"
 	"math"
+	"slices"
 	"strings"
 
 	"priceiv/ivcore"
@@ -126,6 +127,7 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 		name string
 		role Role
 		x    []float64
+		log  bool // taken as log(x)
 	}
 	var cols []col
 	get := func(name string, role Role) error {
@@ -133,7 +135,7 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 		if err != nil {
 			return err
 		}
-		cols = append(cols, col{name, role, x})
+		cols = append(cols, col{name: name, role: role, x: x})
 		return nil
 	}
 	if s.DemandForm() {
@@ -189,7 +191,7 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 	type idc struct {
 		name   string
 		codes  []int32
-		levels []string
+		levels int
 	}
 	var fes, cls []idc
 	for _, f := range s.FE {
@@ -198,14 +200,14 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 				return nil, p.unknown(strings.TrimSpace(part))
 			}
 		}
-		codes, levels, err := p.IDs(f)
+		codes, levels, err := modelIDs(p, f)
 		if err != nil {
 			return nil, err
 		}
 		fes = append(fes, idc{f, codes, levels})
 	}
 	for _, c := range s.Cluster {
-		codes, levels, err := p.IDs(c)
+		codes, levels, err := modelIDs(p, c)
 		if err != nil {
 			return nil, err
 		}
@@ -258,36 +260,49 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 	if s.DemandForm() {
 		logY := d.Form == "log-log" || d.Form == "semi-log"
 		logP := d.Form == "log-log"
+		// Checked here, on the rows kept so far; the logs are taken
+		// when the used rows are gathered.
 		if logY {
-			x, err := logColumn(p, cols[0].name, cols[0].x, keep, "quantity")
-			if err != nil {
+			if err := checkLogColumn(p, cols[0].name, cols[0].x, keep, "quantity"); err != nil {
 				return nil, err
 			}
-			cols[0].x = x
+			cols[0].log = true
 		}
 		if logP {
-			x, err := logColumn(p, cols[1].name, cols[1].x, keep, "price")
-			if err != nil {
+			if err := checkLogColumn(p, cols[1].name, cols[1].x, keep, "price"); err != nil {
 				return nil, err
 			}
-			cols[1].x = x
+			cols[1].log = true
 		}
 	}
 
 	// Fixed-effect singletons.
 	var effects []ivcore.Effect
 	for _, f := range fes {
-		codes := make([]int32, p.N)
-		for i, c := range f.codes {
-			codes[i] = max(c, 0)
+		// Rows with a missing code are already dropped; they only need
+		// a code within range, so the codes are copied only when some
+		// are missing.
+		codes := f.codes
+		if slices.ContainsFunc(codes, func(c int32) bool { return c < 0 }) {
+			codes = make([]int32, p.N)
+			for i, c := range f.codes {
+				codes[i] = max(c, 0)
+			}
 		}
-		effects = append(effects, ivcore.Effect{Name: f.name, Codes: codes, Levels: len(f.levels)})
+		effects = append(effects, ivcore.Effect{Name: f.name, Codes: codes, Levels: f.levels})
 	}
 	if len(effects) > 0 {
 		if n := ivcore.DropSingletons(effects, keep); n > 0 {
 			d.Dropped = append(d.Dropped, Drop{Reason: "singleton in a fixed effect", Rows: n})
 		}
 	}
+	used := 0
+	for _, k := range keep {
+		if k {
+			used++
+		}
+	}
+	d.Rows = makeInts(used)
 	for i, k := range keep {
 		if k {
 			d.Rows = append(d.Rows, i)
@@ -299,8 +314,19 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 	}
 
 	// Gather the used rows.
-	gather := func(x []float64) []float64 {
-		y := make([]float64, d.N)
+	// When every row is used, a column taken as it is is shared with
+	// the panel rather than copied (neither is ever modified).
+	gather := func(x []float64, log bool) []float64 {
+		if !log && d.N == p.N {
+			return x
+		}
+		y := makeFloats(d.N)
+		if log {
+			for j, i := range d.Rows {
+				y[j] = math.Log(x[i])
+			}
+			return y
+		}
 		for j, i := range d.Rows {
 			y[j] = x[i]
 		}
@@ -308,15 +334,23 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 	}
 	for _, c := range cols {
 		d.Names = append(d.Names, c.name)
-		d.Raw = append(d.Raw, gather(c.x))
+		d.Raw = append(d.Raw, gather(c.x, c.log))
 	}
 	if s.DemandForm() {
+		// The same sums, minimum and maximum as mean, minOf and maxOf
+		// over the gathered columns, in the same order, without them.
 		q, _ := p.Float(s.Quantity)
 		pr, _ := p.Float(s.Price)
-		d.MeanQuantity = mean(gather(q))
-		gp := gather(pr)
-		d.MeanPrice = mean(gp)
-		d.PriceStats = PriceStats{MeanPrice: d.MeanPrice, MeanQuantity: d.MeanQuantity, PriceMin: minOf(gp), PriceMax: maxOf(gp)}
+		sq, sp := 0.0, 0.0
+		lo, hi := math.Inf(1), math.Inf(-1)
+		for _, i := range d.Rows {
+			sq += q[i]
+			sp += pr[i]
+			lo, hi = math.Min(lo, pr[i]), math.Max(hi, pr[i])
+		}
+		d.MeanQuantity = sq / float64(d.N)
+		d.MeanPrice = sp / float64(d.N)
+		d.PriceStats = PriceStats{MeanPrice: d.MeanPrice, MeanQuantity: d.MeanQuantity, PriceMin: lo, PriceMax: hi}
 	}
 	// Order columns: outcome, endogenous, intercept (without fixed
 	// effects), exogenous, instruments.
@@ -360,7 +394,7 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 	// Absorb.
 	d.Cols = raw
 	if len(effects) > 0 {
-		ce, _ := ivcore.Compact(effects, keep)
+		ce := compactEffects(effects, d.Rows)
 		opts := ivcore.AbsorbOptions{Tol: s.Tolerance, MaxIter: s.MaxSweeps, Workers: workers}
 		dst := make([][]float64, len(raw))
 		ab, err := ivcore.Absorb(dst, raw, ce, opts)
@@ -376,7 +410,7 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 	var dims []ivcore.ClusterDim
 	var cc [][]int32
 	for _, c := range cls {
-		codes, g := compactCodes(c.codes, d.Rows)
+		codes, g := compactCodes(c.codes, c.levels, d.Rows)
 		cc = append(cc, codes)
 		dims = append(dims, ivcore.ClusterDim{Name: c.name, Codes: codes, G: g})
 	}
@@ -405,6 +439,24 @@ func roleName(r Role) string {
 	return [...]string{"outcome", "endogenous regressor", "control", "instrument"}[r]
 }
 
+// checkLogColumn returns logColumn's error for x without computing the
+// logs.
+func checkLogColumn(p *Panel, name string, x []float64, keep []bool, what string) error {
+	bad, first := 0, -1
+	for i, v := range x {
+		if keep[i] && v <= 0 {
+			bad++
+			if first < 0 {
+				first = i
+			}
+		}
+	}
+	if bad > 0 {
+		return logError(p, name, x, bad, first, what)
+	}
+	return nil
+}
+
 // logColumn returns log(x) for the kept rows, or an error counting the
 // non-positive values with the first line.
 func logColumn(p *Panel, name string, x []float64, keep []bool, what string) ([]float64, error) {
@@ -425,25 +477,178 @@ func logColumn(p *Panel, name string, x []float64, keep []bool, what string) ([]
 		y[i] = math.Log(v)
 	}
 	if bad > 0 {
-		return nil, fmt.Errorf("%w: %s: %d row(s) of %s column %q are zero or negative, first on line %d (value %g); a log-log model cannot use them: drop them with --where '%s > 0' if they are data errors or stock-outs, or choose --form linear",
-			ErrNonPositiveLog, p.Source, bad, what, name, p.Line(first), x[first], name)
+		return nil, logError(p, name, x, bad, first, what)
 	}
 	return y, nil
 }
 
-func compactCodes(codes []int32, rows []int) ([]int32, int) {
-	m := map[int32]int32{}
+// logError says that bad values of column name, the first at row first,
+// are not positive.
+func logError(p *Panel, name string, x []float64, bad, first int, what string) error {
+	return fmt.Errorf("%w: %s: %d row(s) of %s column %q are zero or negative, first on line %d (value %g); a log-log model cannot use them: drop them with --where '%s > 0' if they are data errors or stock-outs, or choose --form linear",
+		ErrNonPositiveLog, p.Source, bad, what, name, p.Line(first), x[first], name)
+}
+
+// modelIDs returns the codes of an id column or an interaction "a*b*…"
+// and its number of levels: the codes Panel.IDs gives, found without maps
+// in the common cases. A text column gives its codes; a numeric column
+// whose values are whole numbers spanning at most idSpan gives the rank
+// of each value among the distinct values (what IDs gives by sorting); an
+// interaction numbers the pairs of codes of its parts in order of first
+// appearance through a table of all pairs, when there are at most idSpan.
+// Anything else is left to Panel.IDs.
+func modelIDs(p *Panel, name string) ([]int32, int, error) {
+	slow := func() ([]int32, int, error) {
+		codes, levels, err := p.IDs(name)
+		return codes, len(levels), err
+	}
+	var codes []int32
+	levels := 0
+	for k, part := range strings.Split(name, "*") {
+		c, l, ok := denseIDs(p, strings.TrimSpace(part))
+		if !ok {
+			return slow()
+		}
+		if k == 0 {
+			codes, levels = c, l
+			continue
+		}
+		if int64(levels)*int64(l) > idSpan {
+			return slow()
+		}
+		table := make([]int32, levels*l)
+		for i := range table {
+			table[i] = -1
+		}
+		out := makeInt32s(len(codes))
+		var next int32
+		for i, a := range codes {
+			b := c[i]
+			if a < 0 || b < 0 {
+				out[i] = -1
+				continue
+			}
+			t := &table[int(a)*l+int(b)]
+			if *t < 0 {
+				*t = next
+				next++
+			}
+			out[i] = *t
+		}
+		codes, levels = out, int(next)
+	}
+	return codes, levels, nil
+}
+
+// idSpan bounds the tables of modelIDs.
+const idSpan = 1 << 24
+
+// denseIDs is Panel.IDs for one column that is text, or numeric with whole
+// values spanning at most idSpan; ok is false otherwise.
+func denseIDs(p *Panel, name string) (codes []int32, levels int, ok bool) {
+	if t, ok := p.Text[name]; ok {
+		return t.Codes, len(t.Levels), true
+	}
+	x, ok := p.Num[name]
+	if !ok {
+		return nil, 0, false
+	}
+	lo, hi := math.Inf(1), math.Inf(-1)
+	for _, v := range x {
+		if math.IsNaN(v) {
+			continue
+		}
+		if v != math.Trunc(v) || math.IsInf(v, 0) {
+			return nil, 0, false
+		}
+		lo, hi = math.Min(lo, v), math.Max(hi, v)
+	}
+	if lo > hi { // every cell missing
+		codes = make([]int32, len(x))
+		for i := range codes {
+			codes[i] = -1
+		}
+		return codes, 0, true
+	}
+	if hi-lo >= idSpan {
+		return nil, 0, false
+	}
+	rank := make([]int32, int(hi-lo)+1)
+	for _, v := range x {
+		if !math.IsNaN(v) {
+			rank[int(v-lo)] = 1
+		}
+	}
+	var next int32
+	for i, r := range rank {
+		if r != 0 {
+			rank[i] = next
+			next++
+		} else {
+			rank[i] = -1
+		}
+	}
+	codes = makeInt32s(len(x))
+	for i, v := range x {
+		if math.IsNaN(v) {
+			codes[i] = -1
+		} else {
+			codes[i] = rank[int(v-lo)]
+		}
+	}
+	return codes, int(next), true
+}
+
+// compactCodes renumbers the codes (all in [0, levels)) of the rows used,
+// 0…G-1 in order of first appearance. When the rows are all the rows
+// (rows holds increasing indices, so it is then 0…len(codes)-1) and the
+// codes are already so numbered, codes itself is returned: the same
+// values, without a copy (codes are never modified).
+func compactCodes(codes []int32, levels int, rows []int) ([]int32, int) {
+	if len(rows) == len(codes) {
+		var next int32
+		ok := true
+		for _, c := range codes {
+			if c > next || c < 0 {
+				ok = false
+				break
+			}
+			if c == next {
+				next++
+			}
+		}
+		if ok {
+			return codes, int(next)
+		}
+	}
+	remap := make([]int32, levels)
+	for l := range remap {
+		remap[l] = -1
+	}
 	out := make([]int32, len(rows))
+	var next int32
 	for j, i := range rows {
 		c := codes[i]
-		v, ok := m[c]
-		if !ok {
-			v = int32(len(m))
-			m[c] = v
+		if remap[c] < 0 {
+			remap[c] = next
+			next++
 		}
-		out[j] = v
+		out[j] = remap[c]
 	}
-	return out, len(m)
+	return out, int(next)
+}
+
+// compactEffects is ivcore.Compact for the kept rows listed in rows: each
+// effect restricted to those rows, its codes renumbered 0…L-1 in order of
+// first appearance. It gives the same effects as Compact without building
+// the row list again.
+func compactEffects(effects []ivcore.Effect, rows []int) []ivcore.Effect {
+	out := make([]ivcore.Effect, len(effects))
+	for k, e := range effects {
+		codes, l := compactCodes(e.Codes, e.Levels, rows)
+		out[k] = ivcore.Effect{Name: e.Name, Codes: codes, Levels: l}
+	}
+	return out
 }
 
 func pairCodes(a, b []int32) ([]int32, int) {

@@ -142,9 +142,9 @@ func ReadParquet(r io.ReaderAt, size int64, source string, opts ReadOptions) (*P
 	codes := make([][]int32, len(cols))
 	for j, s := range specs {
 		if s.text {
-			codes[j] = make([]int32, n)
+			codes[j] = makeInt32s(n)
 		} else {
-			num[j] = make([]float64, n)
+			num[j] = makeFloats(n)
 		}
 	}
 
@@ -234,6 +234,7 @@ type pqColumn struct {
 	scale int  // decimal scale; 0 when not a decimal
 	dec   bool // DECIMAL logical type
 	uns   bool // unsigned integer
+	def   byte // definition level of a present value
 }
 
 func pqColumnSpec(source string, j int, c *parquet.Column) (pqColumn, error) {
@@ -250,6 +251,7 @@ func pqColumnSpec(source string, j int, c *parquet.Column) (pqColumn, error) {
 			"export one value per row, or leave the column out of the export")
 	}
 	s.leaf = c.Index()
+	s.def = byte(c.MaxDefinitionLevel())
 	t := c.Type()
 	s.kind = t.Kind()
 	lt := t.LogicalType()
@@ -286,8 +288,10 @@ type pqReader struct {
 }
 
 // pages calls f on every page of a column chunk, with the values of the
-// page, and the page's row offset within the chunk.
-func (rd *pqReader) pages(s *pqColumn, chunk parquet.ColumnChunk, rows int, f func(vals []parquet.Value, row int) error) error {
+// page, and the page's row offset within the chunk. When fast is not nil
+// it is offered each page first, with the row offset, and returns the
+// number of rows it took from the page (0: it did not take it).
+func (rd *pqReader) pages(s *pqColumn, chunk parquet.ColumnChunk, rows int, fast func(page parquet.Page, row int) int, f func(vals []parquet.Value, row int) error) error {
 	if rd.buf == nil {
 		rd.buf = make([]parquet.Value, pqBatch)
 	}
@@ -302,6 +306,13 @@ func (rd *pqReader) pages(s *pqColumn, chunk parquet.ColumnChunk, rows int, f fu
 		if err != nil {
 			return &ParquetError{File: rd.source, Column: s.pos + 1, Name: s.name, Msg: "a page cannot be read", Err: err,
 				Hint: "the file is damaged or uses a compression this reader lacks; write it again"}
+		}
+		if fast != nil && page.NumValues() == page.NumRows() && row+int(page.NumRows()) <= rows {
+			if k := fast(page, row); k > 0 {
+				row += k
+				parquet.Release(page)
+				continue
+			}
 		}
 		vr := page.Values()
 		for {
@@ -342,7 +353,42 @@ func (rd *pqReader) countError(s *pqColumn, rows int) error {
 // readNum reads a numeric column chunk into dst.
 func (rd *pqReader) readNum(s *pqColumn, chunk parquet.ColumnChunk, dst []float64) error {
 	nan := math.NaN()
-	return rd.pages(s, chunk, len(dst), func(vals []parquet.Value, row int) error {
+	// Plain DOUBLE pages (what WriteParquet writes) are copied from the
+	// page's buffer, nulls placed by the definition levels.
+	fast := func(page parquet.Page, row int) int {
+		if s.kind != parquet.Double || s.dec || page.Dictionary() != nil || page.Type().Kind() != parquet.Double {
+			return 0
+		}
+		data := page.Data()
+		vals := data.Double()
+		n := int(page.NumValues())
+		out := dst[row : row+n]
+		def := page.DefinitionLevels()
+		if len(def) == 0 {
+			if len(vals) != n {
+				return 0
+			}
+			copy(out, vals)
+			return n
+		}
+		if len(def) != n {
+			return 0
+		}
+		k := 0
+		for i, d := range def {
+			if d != s.def {
+				out[i] = nan
+				continue
+			}
+			if k >= len(vals) {
+				return 0 // malformed: let the general path report it
+			}
+			out[i] = vals[k]
+			k++
+		}
+		return n
+	}
+	return rd.pages(s, chunk, len(dst), fast, func(vals []parquet.Value, row int) error {
 		out := dst[row : row+len(vals)]
 		for i, v := range vals {
 			if v.IsNull() {
@@ -451,7 +497,66 @@ type pqLevels struct {
 func (rd *pqReader) readText(s *pqColumn, chunk parquet.ColumnChunk, dst []int32, row0 int, lv *pqLevels) error {
 	var last []byte
 	lastCode := int32(-2)
-	return rd.pages(s, chunk, len(dst), func(vals []parquet.Value, row int) error {
+	// Dictionary-encoded pages (what WriteParquet writes): each
+	// dictionary entry is interned once, and rows map their index.
+	var dict parquet.Dictionary
+	var dictCodes []int32
+	fast := func(page parquet.Page, row int) int {
+		d := page.Dictionary()
+		if d == nil || page.Type().Kind() != parquet.ByteArray && page.Type().Kind() != parquet.FixedLenByteArray {
+			return 0
+		}
+		data := page.Data()
+		if data.Kind() != encoding.Int32 {
+			return 0
+		}
+		idx := data.Int32()
+		n := int(page.NumValues())
+		def := page.DefinitionLevels()
+		if len(def) != 0 && len(def) != n || len(def) == 0 && len(idx) != n {
+			return 0
+		}
+		if d != dict {
+			dict = d
+			dictCodes = dictCodes[:0]
+			for i := range d.Len() {
+				b := d.Index(int32(i)).ByteArray()
+				c, ok := lv.m[string(b)]
+				if !ok {
+					c = -1 // interned at its first row below
+				}
+				dictCodes = append(dictCodes, c)
+			}
+		}
+		out := dst[row : row+n]
+		k := 0
+		for i := range out {
+			if len(def) != 0 && def[i] != s.def {
+				out[i] = -1
+				continue
+			}
+			if k >= len(idx) || idx[k] < 0 || int(idx[k]) >= len(dictCodes) {
+				return 0 // malformed: let the general path report it
+			}
+			c := dictCodes[idx[k]]
+			if c < 0 {
+				str := string(d.Index(idx[k]).ByteArray())
+				if g, ok := lv.m[str]; ok {
+					c = g
+				} else {
+					c = int32(len(lv.levels))
+					lv.m[str] = c
+					lv.levels = append(lv.levels, str)
+					lv.first = append(lv.first, row0+row+i)
+				}
+				dictCodes[idx[k]] = c
+			}
+			out[i] = c
+			k++
+		}
+		return n
+	}
+	return rd.pages(s, chunk, len(dst), fast, func(vals []parquet.Value, row int) error {
 		out := dst[row : row+len(vals)]
 		for i, v := range vals {
 			if v.IsNull() {
