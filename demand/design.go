@@ -418,12 +418,24 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 		codes, g := pairCodes(cc[0], cc[1])
 		dims = append(dims, ivcore.ClusterDim{Name: cls[0].name + "×" + cls[1].name, Codes: codes, G: g})
 	}
+	// Absorbed parameters of effects nested within a clustering dimension
+	// leave k of that dimension's small-sample factor. They are counted
+	// as the rank of the nested effects' dummies alone, so the count does
+	// not depend on the order of --fe (redundant levels are charged to the
+	// second of two effects, which may be the nested one).
 	for j := range dims {
-		for e, eff := range effects {
+		var nested []ivcore.Effect
+		for _, eff := range effects {
 			if ivcore.NestedIn(eff, dims[j].Codes) {
-				info := d.Absorption.Effects[e]
-				dims[j].NestedDoF += info.Levels - info.Redundant
+				nested = append(nested, eff)
 			}
+		}
+		if len(nested) > 0 {
+			ab, err := ivcore.Absorb(nil, nil, nested, ivcore.AbsorbOptions{})
+			if err != nil {
+				return nil, err
+			}
+			dims[j].NestedDoF = ab.DoF
 		}
 	}
 	m := ivcore.Accumulate(d.Cols, names, dims, workers)

@@ -225,3 +225,28 @@ func TestCriticalValues(t *testing.T) {
 		}
 	}
 }
+
+// TestFixedEffectOrder: the estimates and the cluster-robust standard
+// errors do not depend on the order in which fixed effects are listed
+// (the degrees-of-freedom rule of DESIGN.md counts the levels of effects
+// nested in the cluster as a set; common practice).
+func TestFixedEffectOrder(t *testing.T) {
+	pn := smallFEPanel(5, 20, 10)
+	var se []float64
+	for _, fe := range [][]string{{"store", "week"}, {"week", "store"}} {
+		spec := &demand.Spec{Outcome: "lq", Endogenous: []string{"lp"}, Instruments: []string{"z1", "z2"},
+			FE: fe, Cluster: []string{"store"}, Vcov: "cluster"}
+		d, err := demand.Build(pn, spec, 1)
+		if err != nil {
+			t.Fatal(err)
+		}
+		fit, _, err := d.Fit()
+		if err != nil {
+			t.Fatal(err)
+		}
+		se = append(se, fit.SE(0))
+	}
+	if math.Abs(se[0]/se[1]-1) > 1e-9 {
+		t.Errorf("s.e. %.12f with store,week but %.12f with week,store", se[0], se[1])
+	}
+}

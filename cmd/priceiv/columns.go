@@ -13,7 +13,7 @@ import (
 func newColumnsCmd() *cobra.Command {
 	var delimiter string
 	cmd := &cobra.Command{
-		Use:   "columns PANEL.csv",
+		Use:   "columns PANEL.csv|PANEL.parquet",
 		Short: "List a panel's columns with their type, missing cells and range",
 		Example: `  priceiv columns sales.csv
   priceiv columns exports/week12.csv --delimiter ';'`,
@@ -25,7 +25,7 @@ func newColumnsCmd() *cobra.Command {
 			if err != nil {
 				return err
 			}
-			p, err := demand.ReadCSVFile(args[0], demand.ReadOptions{Delimiter: d})
+			p, err := demand.ReadPanelFile(args[0], demand.ReadOptions{Delimiter: d})
 			if err != nil {
 				return err
 			}
