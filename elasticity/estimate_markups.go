@@ -67,9 +67,11 @@ func TableMarkups(t *demand.ProductTable, prices []PriceRow) *PricingReport {
 
 // CrossMarkups returns the product-line margins implied by a cross-price
 // matrix: each owner pricing all of its products together (one firm owns
-// them all unless owners are given), at mean prices and mean units per
+// them all unless owners are given, by the prices file's owner column or
+// by owners, a map from product to owner that takes precedence), at mean
+// prices and mean units per
 // market-period unless the prices file gives them.
-func CrossMarkups(c *demand.CrossPrice, stats map[string]demand.PriceStats, prices []PriceRow) *PricingReport {
+func CrossMarkups(c *demand.CrossPrice, stats map[string]demand.PriceStats, prices []PriceRow, owners map[string]string) *PricingReport {
 	rep := &PricingReport{Level: c.Level}
 	n := len(c.Products)
 	E := mat.NewDense(n, n, nil)
@@ -94,6 +96,9 @@ func CrossMarkups(c *demand.CrossPrice, stats map[string]demand.PriceStats, pric
 				qty[i] = *r.Quantity
 			}
 			o = r.Owner
+		}
+		if ow, ok := owners[p]; ok {
+			o = ow
 		}
 		owner = append(owner, o)
 		own := OwnElasticity{Product: p, E: c.Matrix[i][i], Lo: c.CILow[i][i], Hi: c.CIHigh[i][i], SE: c.StdErrors[i][i], Band: "Wald"}
@@ -152,6 +157,32 @@ func ProductStats(p *demand.Panel, productCol, priceCol, qtyCol string) (map[str
 		if n[k] > 0 {
 			out[l] = demand.PriceStats{MeanPrice: sp[k] / float64(n[k]), MeanQuantity: sq[k] / float64(n[k]), PriceMin: lo[k], PriceMax: hi[k]}
 		}
+	}
+	return out, nil
+}
+
+// ProductOwners reads which owner each product belongs to from an owner
+// column of the panel (one owner per product; rows with a missing owner are
+// ignored). A product with two owners is an error naming both and a line.
+func ProductOwners(p *demand.Panel, productCol, ownerCol string) (map[string]string, error) {
+	pc, pl, err := p.IDs(productCol)
+	if err != nil {
+		return nil, err
+	}
+	oc, ol, err := p.IDs(ownerCol)
+	if err != nil {
+		return nil, err
+	}
+	out := map[string]string{}
+	for i := range pc {
+		if pc[i] < 0 || oc[i] < 0 {
+			continue
+		}
+		prod, own := pl[pc[i]], ol[oc[i]]
+		if prev, ok := out[prod]; ok && prev != own {
+			return nil, fmt.Errorf("%s: line %d: product %q has owner %q here but %q elsewhere; --owner needs one owner per product", p.Source, p.Line(i), prod, own, prev)
+		}
+		out[prod] = own
 	}
 	return out, nil
 }

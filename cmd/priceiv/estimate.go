@@ -20,7 +20,7 @@ func newEstimateCmd() *cobra.Command {
 	var useDemo bool
 	var boot int
 	var seed uint64
-	var pricesFile string
+	var pricesFile, ownerCol string
 	cmd := &cobra.Command{
 		Use:   "estimate [PANEL.csv] [flags]",
 		Short: "Estimate a demand (or any IV) model and print elasticities with bands",
@@ -74,6 +74,9 @@ flags override it.`,
 					pricesFile = joinRel(mf.spec, pricesFile)
 				}
 			}
+			if ownerCol != "" && !spec.Cross {
+				return fmt.Errorf("--owner sets who prices which product in the product-line margins: use it with --cross")
+			}
 			switch {
 			case spec.By != "" || spec.Interact != "":
 				t, err := runProducts(panel, spec)
@@ -117,7 +120,17 @@ flags override it.`,
 						return err
 					}
 				}
-				rep := elasticity.CrossMarkups(c, stats, prices)
+				var owners map[string]string
+				if ownerCol != "" {
+					prod := spec.Product
+					if prod == "" {
+						prod = "product"
+					}
+					if owners, err = elasticity.ProductOwners(panel, prod, ownerCol); err != nil {
+						return err
+					}
+				}
+				rep := elasticity.CrossMarkups(c, stats, prices, owners)
 				return emit(cmd, out, func(w io.Writer) error {
 					return elasticity.WriteCombined(w, format,
 						func(w io.Writer, f string) error { return elasticity.WriteCrossPrice(w, c, f) },
@@ -128,6 +141,7 @@ flags override it.`,
 			if pricesFile != "" {
 				return fmt.Errorf("--prices holds prices per product: use it with --by, --interact or --cross")
 			}
+
 			res, d, fit, err := runEstimate(panel, spec)
 			if err != nil {
 				return err
@@ -163,6 +177,7 @@ flags override it.`,
 	cmd.Flags().IntVar(&boot, "bootstrap", 0, "cluster-bootstrap replicates for percentile bands (0: off; 999 is usual)")
 	cmd.Flags().Uint64Var(&seed, "seed", 1, "seed of the bootstrap draws (same seed, same bands on any number of cores)")
 	cmd.Flags().StringVar(&pricesFile, "prices", "", "CSV of current prices per product (product, price, optional unit_cost, quantity, owner) for margins")
+	cmd.Flags().StringVar(&ownerCol, "owner", "", "with --cross: panel column naming the firm that owns each product (rivals' products are priced by their owners)")
 	cmd.Flags().StringVar(&format, "format", "text", "output format: text, json, csv or markdown")
 	cmd.Flags().StringVar(&out, "out", "", "write the output to this file (written only when the run succeeds)")
 	cmd.MarkFlagsMutuallyExclusive("demo", "data")

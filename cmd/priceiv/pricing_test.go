@@ -1,9 +1,12 @@
 package main
 
 import (
+	"bytes"
 	"math"
 	"strings"
 	"testing"
+
+	"priceiv/demo"
 )
 
 // TestEstimateMarginsAndBootstrap checks the margins section of the pooled
@@ -97,5 +100,63 @@ func TestCrossBootstrap(t *testing.T) {
 	}
 	if len(m["elasticities"].([]any)) != len(mat) {
 		t.Error("cross-price output lacks the own-price rows with prices for what-ifs")
+	}
+}
+
+// TestCrossOwner: with --owner, products of a rival are solved in the
+// rival's own first-order conditions, so our product-line margins differ
+// from the one-owner case; a product with two owners is refused (generated
+// truth: demo market, owners invented for the test).
+func TestCrossOwner(t *testing.T) {
+	m, err := demo.Generate(demo.Config{Products: 3, Stores: 40, Weeks: 60, Seed: 11})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var buf bytes.Buffer
+	if err := m.WriteCSV(&buf); err != nil {
+		t.Fatal(err)
+	}
+	lines := strings.Split(strings.TrimRight(buf.String(), "\n"), "\n")
+	rival := m.Truth.Products[2].Name
+	for i := range lines {
+		switch {
+		case i == 0:
+			lines[i] += ",owner"
+		case strings.HasPrefix(lines[i], rival+",") || strings.HasPrefix(lines[i], `"`+rival+`"`):
+			lines[i] += ",rival"
+		default:
+			lines[i] += ",us"
+		}
+	}
+	path := writeFile(t, "line.csv", strings.Join(lines, "\n")+"\n")
+	cm := m.Truth.CrossPriceModel
+	args := []string{"estimate", path, "--cross", "--quantity", cm.Quantity, "--price", cm.Price, "--product", "product",
+		"--shifters", strings.Join(cm.Shifters, ","), "--controls", strings.Join(cm.Controls, ","),
+		"--fe", "store", "--cluster", "store", "--unit", "store", "--time", "week"}
+	one := runJSON(t, args...)
+	two := runJSON(t, append(args, "--owner", "owner")...)
+	rows := func(x map[string]any) map[string]any {
+		out := map[string]any{}
+		for _, r := range x["product_line"].(map[string]any)["products"].([]any) {
+			r := r.(map[string]any)
+			out[r["product"].(string)] = r
+		}
+		return out
+	}
+	a, b := rows(one), rows(two)
+	if b[rival].(map[string]any)["owner"] != "rival" {
+		t.Errorf("rival's owner: %v", b[rival])
+	}
+	est := func(r any) float64 {
+		return r.(map[string]any)["lerner"].(map[string]any)["estimate"].(float64)
+	}
+	ours := m.Truth.Products[0].Name
+	if est(a[ours]) == est(b[ours]) {
+		t.Errorf("owners did not change the product-line margin of %s: %v", ours, b[ours])
+	}
+	bad := strings.Replace(strings.Join(lines, "\n"), ",us\n", ",rival\n", 1)
+	_, _, err = run(t, append([]string{"estimate", writeFile(t, "bad.csv", bad+"\n")}, append(args[2:], "--owner", "owner")...)...)
+	if err == nil || !strings.Contains(err.Error(), "one owner per product") {
+		t.Errorf("two owners for one product: %v", err)
 	}
 }
