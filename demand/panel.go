@@ -152,8 +152,25 @@ func (p *Panel) IDs(name string) (codes []int32, levels []string, err error) {
 
 // Float returns a numeric column by name, with a precise error when the
 // column does not exist or holds text.
+//
+// A column holding an infinite value (a cell reading "Inf", or a number
+// too large for double precision in a Parquet file) is refused with the
+// count and the first line: no estimate can use it.
 func (p *Panel) Float(name string) ([]float64, error) {
 	if x, ok := p.Num[name]; ok {
+		bad, first := 0, -1
+		for i, v := range x {
+			if math.IsInf(v, 0) {
+				bad++
+				if first < 0 {
+					first = i
+				}
+			}
+		}
+		if bad > 0 {
+			return nil, &ParseError{File: p.Source, Line: p.Line(first), Name: name, Text: strconv.FormatFloat(x[first], 'g', -1, 64),
+				Err: ErrNotNumeric, Hint: fmt.Sprintf("%d cell(s) of column %q are infinite; correct them, or leave them empty to mark them missing", bad, name)}
+		}
 		return x, nil
 	}
 	if t, ok := p.Text[name]; ok {

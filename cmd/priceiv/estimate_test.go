@@ -137,6 +137,7 @@ func TestEstimateBadInput(t *testing.T) {
 	}{
 		{"unknown column", "", []string{"--quantity", "unit", "--price", "price", "--shifters", "cost"}, demand.ErrUnknownColumn, []string{`"unit"`, "units"}},
 		{"non-numeric cell", strings.Replace(smallPanel, "B,3,105,2.2", "B,3,105,2.2x", 1), []string{"--quantity", "units", "--price", "price", "--shifters", "cost"}, demand.ErrNotNumeric, []string{"line 8", "price", `"2.2x"`}},
+		{"infinite cell", strings.Replace(smallPanel, "B,3,105,2.2", "B,3,105,Inf", 1), []string{"--quantity", "units", "--price", "price", "--shifters", "cost"}, demand.ErrNotNumeric, []string{"line 8", `"price"`, "infinite"}},
 		{"log of zero", strings.Replace(smallPanel, "A,3,95,", "A,3,0,", 1), []string{"--quantity", "units", "--price", "price", "--shifters", "cost"}, demand.ErrNonPositiveLog, []string{"1 row", "line 4", "--where 'units > 0'"}},
 		{"fewer instruments", "", []string{"--outcome", "units", "--endogenous", "price,promo", "--instruments", "cost"}, ivcore.ErrOrderCondition, []string{"2 endogenous", "1 excluded instrument"}},
 		{"control constant within effects", "", []string{"--quantity", "units", "--price", "price", "--shifters", "cost", "--controls", "size", "--fe", "store"}, ivcore.ErrNoVariation, []string{`control "size"`, "no variation"}},
