@@ -106,7 +106,7 @@ func Prepare(p *Panel, s *Spec) (*Panel, []Drop, error) {
 		}
 	}
 	if q.N == 0 {
-		return nil, nil, fmt.Errorf("%w: the filter %q keeps none of the %d rows of %s", ErrEmpty, s.Where, p.N, p.Source)
+		return nil, nil, fmt.Errorf("%w: %s has no data rows (only a header line); check that the right file was given", ErrEmpty, p.Source)
 	}
 	return q, drops, nil
 }
