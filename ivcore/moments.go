@@ -61,6 +61,9 @@ type Moments struct {
 	// that need one more pass over the rows (HC1). Nil when the moments
 	// came from elsewhere (a database, a file of sums).
 	Cols [][]float64
+
+	// hc ties the value to the rows of its HC1 statistics (fourth.go).
+	hc *hcLink
 }
 
 // chunkRows is the number of rows each unit of parallel work sums. Partial
@@ -97,7 +100,7 @@ func Accumulate(cols [][]float64, names []string, clusters []ClusterDim, workers
 	if workers <= 0 {
 		workers = runtime.NumCPU()
 	}
-	m := &Moments{Names: append([]string(nil), names...), N: n, Cols: cols}
+	m := &Moments{Names: append([]string(nil), names...), N: n, Cols: cols, hc: &hcLink{}}
 	m.Gram = gramChunked(cols, n, workers)
 	for _, d := range clusters {
 		if len(d.Codes) != n {

@@ -18,10 +18,20 @@ var ErrNoRows = errors.New("ivcore: this statistic needs the row data (HC1 needs
 //
 // where W are the columns indexed by w, A are all columns, and each r_p is
 // a vector of length K forming a residual e_p = A r_p. A unit u is a row
-// when dim < 0 (one pass over m.Cols) and a cluster of m.Clusters[dim]
-// otherwise (computed from the per-cluster blocks, no pass over rows).
-// The result is (m·|w|) square, ordered residual-major: the block of r_p
-// comes before that of r_{p+1}.
+// when dim < 0 and a cluster of m.Clusters[dim] otherwise (computed from
+// the per-cluster blocks, no pass over rows). The result is (m·|w|)
+// square, ordered residual-major: the block of r_p comes before that of
+// r_{p+1}.
+//
+// With dim < 0 the row sum is a contraction of the fourth-order row
+// moments of the columns (see fourth.go), which are summed in one pass
+// over m.Cols on the first such call and kept: every later HC1 statistic
+// of m, of its copies by Recode and of the values derived from it by
+// Transform costs no pass. With more than 12 columns (where that table
+// outgrows a pass) each call makes its own pass over the rows instead.
+// Moments made by Transform use the rows of the value they were derived
+// from, whether or not their own Cols were formed. ErrNoRows is returned
+// when there are no rows.
 //
 // This covers the meat of HC1 and cluster-robust sandwiches (m = 1) and the
 // joint covariance of several first-stage regressions needed by the
@@ -33,19 +43,63 @@ func (m *Moments) ScoreCov(w []int, r [][]float64, dim int) (*mat.SymDense, erro
 			panic("ivcore: residual combination length differs from the column count")
 		}
 	}
+	wc := make([]combo, len(w))
+	for a, j := range w {
+		if j < 0 || j >= k {
+			panic("ivcore: score column out of range")
+		}
+		wc[a] = combo{{j: j, c: 1}}
+	}
+	return m.scoreCov(wc, r, dim)
+}
+
+// term is one non-zero entry c of a combination, on column j.
+type term struct {
+	j int
+	c float64
+}
+
+// combo is a sparse combination of columns, Σ c_t A_{j_t}: a column of
+// the K×|w| matrix W of score columns.
+type combo []term
+
+// denseCombo returns the non-zero entries of v.
+func denseCombo(v []float64) combo {
+	var c combo
+	for j, x := range v {
+		if x != 0 {
+			c = append(c, term{j, x})
+		}
+	}
+	return c
+}
+
+// scoreCov is ScoreCov for score columns that are combinations of the
+// columns, A W with W the K×|w| matrix whose columns are w:
+//
+//	S = Σ_u s_u s_uᵀ,   s_u = [(A_u W)ᵀ A_u r_1; …; (A_u W)ᵀ A_u r_m]
+//
+// ScoreCov is scoreCov with W made of unit columns.
+func (m *Moments) scoreCov(w []combo, r [][]float64, dim int) (*mat.SymDense, error) {
 	d := len(w) * len(r)
-	out := make([]float64, d*d)
+	var out []float64
 	if dim >= 0 {
+		k := len(m.Names)
+		out = make([]float64, d*d)
 		cb := m.Clusters[dim]
 		s := make([]float64, d)
 		for g := 0; g < cb.Dim.G; g++ {
 			blk := cb.Block(g)
 			for p, rp := range r {
 				for a, wa := range w {
-					row := blk[wa*k : wa*k+k]
 					v := 0.0
-					for j, rj := range rp {
-						v += row[j] * rj
+					for _, e := range wa {
+						row := blk[e.j*k : e.j*k+k]
+						x := 0.0
+						for j, rj := range rp {
+							x += row[j] * rj
+						}
+						v += e.c * x
 					}
 					s[p*len(w)+a] = v
 				}
@@ -53,10 +107,10 @@ func (m *Moments) ScoreCov(w []int, r [][]float64, dim int) (*mat.SymDense, erro
 			outerAdd(out, s)
 		}
 	} else {
-		if m.Cols == nil {
-			return nil, ErrNoRows
+		var err error
+		if out, err = m.rowScoreSum(w, r); err != nil {
+			return nil, err
 		}
-		rowScoreCov(out, m.Cols, w, r, runtime.NumCPU())
 	}
 	sym := mat.NewSymDense(d, nil)
 	for i := 0; i < d; i++ {
@@ -65,6 +119,56 @@ func (m *Moments) ScoreCov(w []int, r [][]float64, dim int) (*mat.SymDense, erro
 		}
 	}
 	return sym, nil
+}
+
+// rowScoreSum returns the upper triangle of Σ_i s_i s_iᵀ (d×d row-major)
+// for row scores of the combinations w and residuals r of m's columns.
+// When m was made by Transform, w and r are first mapped through its T to
+// combinations of the columns holding the rows:
+//
+//	W' = T W,   r'_p = T r_p
+//
+// The sum is then a contraction of the cached fourth moments, or, above
+// fourthCap columns, one pass over the rows.
+func (m *Moments) rowScoreSum(w []combo, r [][]float64) ([]float64, error) {
+	src, t, hc := m.rowSource()
+	if src.Cols == nil {
+		return nil, ErrNoRows
+	}
+	if t != nil {
+		kp, k := len(src.Names), len(m.Names)
+		w2 := make([]combo, len(w))
+		for a, wa := range w {
+			v := make([]float64, kp)
+			for l := range v {
+				for _, e := range wa {
+					v[l] += t[l*k+e.j] * e.c
+				}
+			}
+			w2[a] = denseCombo(v)
+		}
+		r2 := make([][]float64, len(r))
+		for p, rp := range r {
+			v := make([]float64, kp)
+			for l := range v {
+				tl := t[l*k : (l+1)*k]
+				for j, rj := range rp {
+					v[l] += tl[j] * rj
+				}
+			}
+			r2[p] = v
+		}
+		w, r = w2, r2
+	}
+	d := len(w) * len(r)
+	out := make([]float64, d*d)
+	if m4 := src.fourth(hc); m4 != nil {
+		fourthScoreCov(out, m4, len(src.Cols), w, r)
+		return out, nil
+	}
+	hc.passes.Add(1)
+	rowScoreCov(out, src.Cols, w, r, runtime.NumCPU())
+	return out, nil
 }
 
 // outerAdd adds the upper triangle of s sᵀ into out (d×d row-major).
@@ -81,9 +185,12 @@ func outerAdd(out, s []float64) {
 	}
 }
 
-// rowScoreCov sums row scores over fixed chunks in parallel and adds the
-// chunk sums in chunk order (deterministic for any worker count).
-func rowScoreCov(out []float64, cols [][]float64, w []int, r [][]float64, workers int) {
+// rowScoreCov adds the upper triangle of Σ_i s_i s_iᵀ into out in one
+// pass over the rows: row scores are summed over fixed chunks in parallel
+// and the chunk sums are added in chunk order (deterministic for any
+// worker count). It is the path of more than fourthCap columns and the
+// reference for the fourth-moment contraction.
+func rowScoreCov(out []float64, cols [][]float64, w []combo, r [][]float64, workers int) {
 	n := len(cols[0])
 	d := len(w) * len(r)
 	nch := (n + chunkRows - 1) / chunkRows
@@ -99,6 +206,7 @@ func rowScoreCov(out []float64, cols [][]float64, w []int, r [][]float64, worker
 		go func() {
 			defer wg.Done()
 			e := make([]float64, len(r))
+			u := make([]float64, len(w))
 			s := make([]float64, d)
 			for c := range next {
 				lo, hi := c*chunkRows, min((c+1)*chunkRows, n)
@@ -113,9 +221,16 @@ func rowScoreCov(out []float64, cols [][]float64, w []int, r [][]float64, worker
 						}
 						e[q] = v
 					}
+					for a, wa := range w {
+						v := 0.0
+						for _, t := range wa {
+							v += t.c * cols[t.j][i]
+						}
+						u[a] = v
+					}
 					for q := range r {
-						for a, wa := range w {
-							s[q*len(w)+a] = cols[wa][i] * e[q]
+						for a, ua := range u {
+							s[q*len(w)+a] = ua * e[q]
 						}
 					}
 					outerAdd(p, s)

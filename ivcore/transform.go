@@ -21,10 +21,18 @@ import (
 // columns get Scale 0, so the variation check only rejects an exact zero
 // for them (their sum of squares before absorption is unknown).
 //
-// The rows themselves are only needed by statistics that make a pass over
-// them (HC1). When withCols is true and m.Cols is not nil, Cols of the
-// result is formed in one pass; otherwise it is nil and ScoreCov with
-// dim < 0 on the result returns ErrNoRows.
+// The result remembers m (or, when m was itself made by Transform, the
+// value holding the rows) and T, so its HC1 statistics need no rows of
+// its own: ScoreCov with dim < 0 maps the score columns and residuals
+// through T to combinations of the original columns and contracts their
+// cached fourth-order row moments (see ScoreCov), so that the original
+// value and everything derived from it share one pass over the rows.
+// ScoreCov returns ErrNoRows only when the original value has no rows.
+//
+// When withCols is true and m.Cols is not nil, Cols of the result is
+// formed as well, in one pass over the rows, for callers that want the
+// transformed rows themselves; otherwise it is nil. HC1 statistics do not
+// need it.
 //
 // A typical use adds combinations of existing columns as new regressors:
 // T = [I | t₁ … t_p] keeps every column and appends A t₁, …, A t_p, such as
@@ -86,6 +94,28 @@ func (m *Moments) Transform(t mat.Matrix, names []string, withCols bool) *Moment
 	}
 
 	out := &Moments{Names: append([]string(nil), names...), N: m.N, AbsorbedDoF: m.AbsorbedDoF}
+	src, tm, hc := m.rowSource()
+	link := &hcLink{parent: src, t: make([]float64, len(src.Names)*kp)}
+	if tm == nil {
+		for l := 0; l < k; l++ {
+			for j := 0; j < kp; j++ {
+				link.t[l*kp+j] = t.At(l, j)
+			}
+		}
+	} else {
+		// Compose with m's own map: A_src tm T.
+		for l := range src.Names {
+			row := tm[l*k : (l+1)*k]
+			for j := 0; j < kp; j++ {
+				v := 0.0
+				for _, e := range nz[j] {
+					v += row[e.l] * e.w
+				}
+				link.t[l*kp+j] = v
+			}
+		}
+	}
+	out.hc = link
 	g := make([]float64, k*k)
 	for i := 0; i < k; i++ {
 		for j := 0; j < k; j++ {
@@ -130,6 +160,7 @@ func (m *Moments) Transform(t mat.Matrix, names []string, withCols bool) *Moment
 	}
 
 	if withCols && m.Cols != nil {
+		hc.passes.Add(1)
 		out.Cols = make([][]float64, kp)
 		for j := range out.Cols {
 			if l := unit[j]; l >= 0 {

@@ -52,7 +52,7 @@ func (c *ctx) endogeneity() error {
 		names = append(names, "first-stage residual of "+c.endogNames[j])
 		vcols = append(vcols, k+j)
 	}
-	mt := c.m.Transform(t, names, c.vk == ivcore.HC1)
+	mt := c.m.Transform(t, names, false) // HC1 uses c.m's rows through T
 	md := ivcore.Model{Y: c.md.Y, Exog: append(c.md.X(), vcols...)}
 	fit, err := ivcore.Estimate(mt, md, ivcore.OLS, c.vk)
 	if err != nil {
