@@ -28,12 +28,3 @@ func makeInt32s(n int) []int32 {
 	}
 	return x
 }
-
-// makeInts returns make([]int, 0, n), advised for huge pages when large.
-func makeInts(n int) []int {
-	x := make([]int, 0, n)
-	if n*8 >= hugeMin {
-		adviseHuge(unsafe.Pointer(unsafe.SliceData(x)), uintptr(n)*8)
-	}
-	return x
-}

@@ -3,6 +3,8 @@ package demand
 import (
 	"fmt"
 	"math"
+	"runtime"
+	"runtime/debug"
 	"slices"
 	"strings"
 
@@ -33,7 +35,10 @@ type Design struct {
 	// instruments.
 	Names []string
 	// Raw holds the model columns after transformation (logs) and before
-	// absorption, for the rows used.
+	// absorption, for the rows used. In a design from BuildLean with
+	// fixed effects, the columns the design computed itself (logs, and the
+	// used rows of a column when some rows are left out) are absorbed in
+	// place and their entries are nil: RawRows gives their values.
 	Raw [][]float64
 	// Cols holds the same columns with fixed effects absorbed.
 	Cols [][]float64
@@ -43,8 +48,10 @@ type Design struct {
 	Absorption *ivcore.Absorption
 	// Dropped lists rows left out and why.
 	Dropped []Drop
-	// Rows are the panel row indices used, in order.
-	Rows []int
+	// Rows are the panel row indices used, in order. In a design from
+	// BuildLean that uses every row of the panel, Rows is nil (row i of the
+	// design is row i of the panel).
+	Rows []int32
 	// N is the number of rows used.
 	N int
 	// Level is the confidence level.
@@ -57,8 +64,16 @@ type Design struct {
 	PriceStats PriceStats
 	// ClusterNames are the cluster columns.
 	ClusterNames []string
-	// Panel is the prepared panel (after derive and filter).
+	// Panel is the prepared panel (after derive and filter). In a design
+	// from BuildLean it holds only the model's columns and the cluster
+	// columns.
 	Panel *Panel
+
+	// rawSrc and rawLog give, for each column (as in Names), the panel
+	// column behind it (nil for the intercept) and whether the column is
+	// its log, for RawRows.
+	rawSrc [][]float64
+	rawLog []bool
 }
 
 // Drop counts rows left out for one reason.
@@ -116,6 +131,60 @@ func Prepare(p *Panel, s *Spec) (*Panel, []Drop, error) {
 // them by column), drops fixed-effect singletons, absorbs the fixed
 // effects and accumulates the moment blocks (per cluster when clustering).
 func Build(p *Panel, s *Spec, workers int) (*Design, error) {
+	return build(p, s, workers, false)
+}
+
+// BuildLean is Build for a design whose raw columns are read at most a few
+// times, for the smallest peak memory: it holds one copy of each model
+// column instead of two. The columns the design computes itself (logs,
+// and the used rows of a column when some rows are left out) are absorbed
+// in place, so their entries of Raw are nil and RawRows recomputes their
+// values from the panel (the same values, bit for bit); Rows is nil when
+// every row is used; Panel holds only the model's columns and the cluster
+// columns of p, so that once the caller lets go of p the memory of its
+// other columns is free for the absorbed ones. With fixed effects,
+// BuildLean returns the memory it no longer needs to the operating system
+// (debug.FreeOSMemory) just before and just after absorbing them. The
+// estimates, moments and absorbed columns are those of Build.
+func BuildLean(p *Panel, s *Spec, workers int) (*Design, error) {
+	return build(p, s, workers, true)
+}
+
+// RawRows returns the raw values (those of Raw) of column j for the used
+// rows lo, lo+1, …, lo+len(dst)-1. When Raw[j] is held it returns
+// Raw[j][lo:lo+len(dst)] and leaves dst alone; otherwise it computes the
+// values into dst and returns dst. RawRows panics if the rows are out of
+// range.
+func (d *Design) RawRows(dst []float64, j, lo int) []float64 {
+	hi := lo + len(dst)
+	if lo < 0 || hi > d.N {
+		panic(fmt.Sprintf("demand: rows [%d,%d) outside the %d rows of the design", lo, hi, d.N))
+	}
+	if d.Raw[j] != nil {
+		return d.Raw[j][lo:hi]
+	}
+	x := d.rawSrc[j]
+	switch {
+	case d.Rows == nil && d.rawLog[j]:
+		for k, v := range x[lo:hi] {
+			dst[k] = math.Log(v)
+		}
+	case d.Rows == nil:
+		copy(dst, x[lo:hi])
+	case d.rawLog[j]:
+		for k, i := range d.Rows[lo:hi] {
+			dst[k] = math.Log(x[i])
+		}
+	default:
+		for k, i := range d.Rows[lo:hi] {
+			dst[k] = x[i]
+		}
+	}
+	return dst
+}
+
+// build is Build, or BuildLean when lean is true.
+func build(p *Panel, s *Spec, workers int, lean bool) (*Design, error) {
 	if err := s.Check(); err != nil {
 		return nil, err
 	}
@@ -214,6 +283,18 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 		cls = append(cls, idc{c, codes, levels})
 	}
 
+	// From here on a lean design reads only the model's columns and the
+	// cluster columns: it lets go of the others (the fixed-effect columns
+	// are coded now), so that their memory can hold the absorbed columns.
+	if lean {
+		var names []string
+		for _, c := range cols {
+			names = append(names, c.name)
+		}
+		p = panelOf(p, append(names, s.Cluster...))
+		d.Panel = p
+	}
+
 	// Rows with a missing value in any used column are dropped; each
 	// row is counted once, under the first column (in model order) that
 	// is missing.
@@ -302,39 +383,59 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 			used++
 		}
 	}
-	d.Rows = makeInts(used)
-	for i, k := range keep {
-		if k {
-			d.Rows = append(d.Rows, i)
+	// rows lists the used rows; nil stands for all of them, in order.
+	var rows []int32
+	if used < p.N || !lean {
+		rows = makeInt32s(used)
+		j := 0
+		for i, k := range keep {
+			if k {
+				rows[j] = int32(i)
+				j++
+			}
 		}
 	}
-	d.N = len(d.Rows)
+	d.Rows, d.N = rows, used
 	if d.N == 0 {
 		return nil, fmt.Errorf("%w: every row of %s has a missing value in a used column (%s)", ErrEmpty, p.Source, dropSummary(d.Dropped))
 	}
 
 	// Gather the used rows.
 	// When every row is used, a column taken as it is is shared with
-	// the panel rather than copied (neither is ever modified).
+	// the panel rather than copied (neither is ever modified); the other
+	// columns are the design's own, filled in parallel when large.
+	nw := workers
+	if nw <= 0 {
+		nw = runtime.NumCPU()
+	}
 	gather := func(x []float64, log bool) []float64 {
 		if !log && d.N == p.N {
 			return x
 		}
 		y := makeFloats(d.N)
-		if log {
-			for j, i := range d.Rows {
-				y[j] = math.Log(x[i])
+		forChunks(d.N, make([]badRows, nw), func(_, lo, hi int) {
+			switch {
+			case rows == nil:
+				for i, v := range x[lo:hi] {
+					y[lo+i] = math.Log(v)
+				}
+			case log:
+				for j, i := range rows[lo:hi] {
+					y[lo+j] = math.Log(x[i])
+				}
+			default:
+				for j, i := range rows[lo:hi] {
+					y[lo+j] = x[i]
+				}
 			}
-			return y
-		}
-		for j, i := range d.Rows {
-			y[j] = x[i]
-		}
+		})
 		return y
 	}
-	for _, c := range cols {
+	owned := make([]bool, len(cols))
+	for o, c := range cols {
 		d.Names = append(d.Names, c.name)
 		d.Raw = append(d.Raw, gather(c.x, c.log))
+		owned[o] = c.log || d.N < p.N
 	}
 	if s.DemandForm() {
 		// The same sums, minimum and maximum as mean, minOf and maxOf
@@ -343,10 +444,19 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 		pr, _ := p.Float(s.Price)
 		sq, sp := 0.0, 0.0
 		lo, hi := math.Inf(1), math.Inf(-1)
-		for _, i := range d.Rows {
+		add := func(i int) {
 			sq += q[i]
 			sp += pr[i]
 			lo, hi = math.Min(lo, pr[i]), math.Max(hi, pr[i])
+		}
+		if rows == nil {
+			for i := range d.N {
+				add(i)
+			}
+		} else {
+			for _, i := range rows {
+				add(int(i))
+			}
 		}
 		d.MeanQuantity = sq / float64(d.N)
 		d.MeanPrice = sp / float64(d.N)
@@ -356,12 +466,14 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 	// effects), exogenous, instruments.
 	var names []string
 	var raw [][]float64
+	var inPlace []bool // absorbed in place (lean)
 	var md ivcore.Model
 	for _, role := range []Role{RoleOutcome, RoleEndogenous, RoleExogenous, RoleInstrument} {
 		if role == RoleExogenous && len(fes) == 0 {
 			md.Exog = append(md.Exog, len(names))
 			names = append(names, "intercept")
 			raw = append(raw, ones(d.N))
+			d.rawSrc, d.rawLog, inPlace = append(d.rawSrc, nil), append(d.rawLog, false), append(inPlace, false)
 		}
 		for o, c := range cols {
 			if c.role != role {
@@ -370,6 +482,8 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 			idx := len(names)
 			names = append(names, c.name)
 			raw = append(raw, d.Raw[o])
+			d.rawSrc, d.rawLog = append(d.rawSrc, c.x), append(d.rawLog, c.log)
+			inPlace = append(inPlace, lean && owned[o])
 			switch role {
 			case RoleOutcome:
 				md.Y = idx
@@ -391,15 +505,37 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 		}
 	}
 
-	// Absorb.
+	// Absorb: into new columns, or, in a lean design, in place for the
+	// columns the design owns.
 	d.Cols = raw
 	if len(effects) > 0 {
-		ce := compactEffects(effects, d.Rows)
+		ce := compactEffects(effects, rows, d.N)
 		opts := ivcore.AbsorbOptions{Tol: s.Tolerance, MaxIter: s.MaxSweeps, Workers: workers}
 		dst := make([][]float64, len(raw))
+		for j := range dst {
+			if inPlace[j] {
+				dst[j] = raw[j]
+			} else {
+				dst[j] = makeFloats(d.N)
+			}
+		}
+		if lean {
+			// The memory let go so far (the panel's other columns, the
+			// row mask) goes back to the system before the absorbed
+			// columns are written, and the absorption's own scratch after.
+			debug.FreeOSMemory()
+		}
 		ab, err := ivcore.Absorb(dst, raw, ce, opts)
 		if err != nil {
 			return nil, fmt.Errorf("absorbing fixed effects %s: %w", strings.Join(s.FE, ", "), err)
+		}
+		for j := range raw {
+			if inPlace[j] {
+				raw[j] = nil
+			}
+		}
+		if lean {
+			debug.FreeOSMemory()
 		}
 		d.Absorption = ab
 		d.Cols = dst
@@ -410,7 +546,7 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 	var dims []ivcore.ClusterDim
 	var cc [][]int32
 	for _, c := range cls {
-		codes, g := compactCodes(c.codes, c.levels, d.Rows)
+		codes, g := compactCodes(c.codes, c.levels, rows, d.N)
 		cc = append(cc, codes)
 		dims = append(dims, ivcore.ClusterDim{Name: c.name, Codes: codes, G: g})
 	}
@@ -445,6 +581,31 @@ func Build(p *Panel, s *Spec, workers int) (*Design, error) {
 	}
 	d.Moments = m
 	return d, nil
+}
+
+// panelOf returns a panel with p's source, rows and lines that holds the
+// columns of p named in names (each part of an interaction "a*b"), in p's
+// order, shared with p.
+func panelOf(p *Panel, names []string) *Panel {
+	want := map[string]bool{}
+	for _, name := range names {
+		for _, part := range strings.Split(name, "*") {
+			want[strings.TrimSpace(part)] = true
+		}
+	}
+	q := NewPanel(p.Source, p.N)
+	q.Lines = p.Lines
+	for _, c := range p.Columns {
+		if !want[c] {
+			continue
+		}
+		if x, ok := p.Num[c]; ok {
+			q.AddNum(c, x)
+		} else if t, ok := p.Text[c]; ok {
+			q.AddText(c, t)
+		}
+	}
+	return q
 }
 
 func roleName(r Role) string {
@@ -611,13 +772,14 @@ func denseIDs(p *Panel, name string) (codes []int32, levels int, ok bool) {
 	return codes, int(next), true
 }
 
-// compactCodes renumbers the codes (all in [0, levels)) of the rows used,
-// 0…G-1 in order of first appearance. When the rows are all the rows
-// (rows holds increasing indices, so it is then 0…len(codes)-1) and the
-// codes are already so numbered, codes itself is returned: the same
-// values, without a copy (codes are never modified).
-func compactCodes(codes []int32, levels int, rows []int) ([]int32, int) {
-	if len(rows) == len(codes) {
+// compactCodes renumbers the codes (all in [0, levels)) of the n rows
+// used, listed in rows (nil: all rows, n = len(codes)), 0…G-1 in order of
+// first appearance. When the rows are all the rows (rows holds increasing
+// indices, so it is then 0…len(codes)-1) and the codes are already so
+// numbered, codes itself is returned: the same values, without a copy
+// (codes are never modified).
+func compactCodes(codes []int32, levels int, rows []int32, n int) ([]int32, int) {
+	if n == len(codes) {
 		var next int32
 		ok := true
 		for _, c := range codes {
@@ -637,10 +799,13 @@ func compactCodes(codes []int32, levels int, rows []int) ([]int32, int) {
 	for l := range remap {
 		remap[l] = -1
 	}
-	out := make([]int32, len(rows))
+	out := makeInt32s(n)
 	var next int32
-	for j, i := range rows {
-		c := codes[i]
+	for j := range out {
+		c := codes[j]
+		if rows != nil {
+			c = codes[rows[j]]
+		}
 		if remap[c] < 0 {
 			remap[c] = next
 			next++
@@ -650,14 +815,14 @@ func compactCodes(codes []int32, levels int, rows []int) ([]int32, int) {
 	return out, int(next)
 }
 
-// compactEffects is ivcore.Compact for the kept rows listed in rows: each
-// effect restricted to those rows, its codes renumbered 0…L-1 in order of
-// first appearance. It gives the same effects as Compact without building
-// the row list again.
-func compactEffects(effects []ivcore.Effect, rows []int) []ivcore.Effect {
+// compactEffects is ivcore.Compact for the n kept rows listed in rows (nil:
+// all rows): each effect restricted to those rows, its codes renumbered
+// 0…L-1 in order of first appearance. It gives the same effects as Compact
+// without building the row list again.
+func compactEffects(effects []ivcore.Effect, rows []int32, n int) []ivcore.Effect {
 	out := make([]ivcore.Effect, len(effects))
 	for k, e := range effects {
-		codes, l := compactCodes(e.Codes, e.Levels, rows)
+		codes, l := compactCodes(e.Codes, e.Levels, rows, n)
 		out[k] = ivcore.Effect{Name: e.Name, Codes: codes, Levels: l}
 	}
 	return out

@@ -190,7 +190,7 @@ func BenchmarkEstimate(b *testing.B) {
 		b.Run("rows="+strconv.Itoa(n), func(b *testing.B) {
 			b.ReportAllocs()
 			for b.Loop() {
-				d, err := demand.Build(p, spec, 0)
+				d, err := demand.BuildLean(p, spec, 0)
 				if err != nil {
 					b.Fatal(err)
 				}
@@ -262,7 +262,7 @@ func estimateCommand(path string, spec *demand.Spec, w io.Writer) error {
 	if err != nil {
 		return err
 	}
-	d, err := demand.Build(p, spec, 0)
+	d, err := demand.BuildLean(p, spec, 0)
 	if err != nil {
 		return err
 	}

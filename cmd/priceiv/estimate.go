@@ -340,7 +340,9 @@ func runEstimate(panel *demand.Panel, spec *demand.Spec) (*demand.Result, *deman
 	if err != nil {
 		return nil, nil, nil, err
 	}
-	d, err := demand.Build(p, spec, 0)
+	// The design is read once more, by the diagnostics: the lean one
+	// holds a single copy of each model column.
+	d, err := demand.BuildLean(p, spec, 0)
 	if err != nil {
 		return nil, nil, nil, err
 	}
