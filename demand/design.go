@@ -852,22 +852,6 @@ func ones(n int) []float64 {
 	return x
 }
 
-func minOf(x []float64) float64 {
-	m := math.Inf(1)
-	for _, v := range x {
-		m = math.Min(m, v)
-	}
-	return m
-}
-
-func maxOf(x []float64) float64 {
-	m := math.Inf(-1)
-	for _, v := range x {
-		m = math.Max(m, v)
-	}
-	return m
-}
-
 func mean(x []float64) float64 {
 	s := 0.0
 	for _, v := range x {

@@ -2,6 +2,7 @@ package demand
 
 import (
 	"fmt"
+	"math"
 
 	"priceiv/ivcore"
 )
@@ -196,7 +197,7 @@ func (d *Design) Summarize(fit *ivcore.Fit, fs []ivcore.FirstStage) *Result {
 			r.Controls = append(r.Controls, d.Names[j])
 		}
 	}
-	r.Sigma = sqrt(fit.Sigma2)
+	r.Sigma = math.Sqrt(fit.Sigma2)
 	for j, name := range fit.Names {
 		lo, hi := fit.ConfInt(j, d.Level)
 		r.Coeffs = append(r.Coeffs, Coefficient{Name: name, Estimate: fit.Coef[j], StdError: fit.SE(j), CILow: lo, CIHigh: hi, PValue: fit.PValue(j)})
@@ -230,7 +231,7 @@ func (d *Design) Summarize(fit *ivcore.Fit, fs []ivcore.FirstStage) *Result {
 		}
 		// Delta method with the means held fixed: e = s·b, se(e) = |s|·se(b).
 		e.OwnPrice = scale * b
-		e.StdError = abs(scale) * se
+		e.StdError = math.Abs(scale) * se
 		c := ivcore.Critical(d.Level, fit.Vcov.DF) * e.StdError
 		e.CILow, e.CIHigh = e.OwnPrice-c, e.OwnPrice+c
 		r.Elasticity = []Elasticity{e}
