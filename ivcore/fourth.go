@@ -1,6 +1,7 @@
 package ivcore
 
 import (
+	"math"
 	"runtime"
 	"sync"
 	"sync/atomic"
@@ -50,9 +51,13 @@ type hcLink struct {
 	// row-major): column j is Σ_l t[l·K+j] A_l.
 	t []float64
 
-	once   sync.Once
-	m4     []float64    // distinct fourth moments (nil when K > fourthCap)
-	passes atomic.Int64 // passes over the rows made for HC1 statistics
+	once sync.Once
+	// m4 holds the distinct fourth moments of the centred and scaled
+	// basis [1, b_1, …, b_K], b_j = (A_j - shift_j)/scale_j (nil when
+	// K > fourthCap).
+	m4           []float64
+	shift, scale []float64
+	passes       atomic.Int64 // passes over the rows made for HC1 statistics
 }
 
 // hcInit guards the lazy creation of the link of values not made by
@@ -101,10 +106,80 @@ func (m *Moments) fourth(hc *hcLink) []float64 {
 		return nil
 	}
 	hc.once.Do(func() {
-		hc.m4 = fourthMoments(m.Cols, runtime.NumCPU())
+		hc.shift, hc.scale = fourthCentre(m.Cols)
+		hc.m4 = fourthMomentsAffine(m.Cols, hc.shift, hc.scale, runtime.NumCPU())
 		hc.passes.Add(1)
 	})
 	return hc.m4
+}
+
+// fourthCentre returns a shift and a scale for each column, taken from
+// the first chunk of rows (its mean and root mean square deviation; scale
+// 1 when the chunk does not vary). Fourth moments of raw columns with
+// large means lose the residual's digits to cancellation when a score
+// covariance is contracted from them (a level quantity around 1e6 whose
+// residual is 1e4); moments of centred, scaled columns keep them. The
+// first chunk is close enough to the whole for this purpose, and reading
+// it twice keeps the statistics to one pass over the data.
+func fourthCentre(cols [][]float64) (shift, scale []float64) {
+	shift = make([]float64, len(cols))
+	scale = make([]float64, len(cols))
+	for j, c := range cols {
+		c = c[:min(len(c), chunkRows)]
+		mu := 0.0
+		for _, v := range c {
+			mu += v
+		}
+		if len(c) > 0 {
+			mu /= float64(len(c))
+		}
+		ss := 0.0
+		for _, v := range c {
+			ss += (v - mu) * (v - mu)
+		}
+		sd := 0.0
+		if len(c) > 0 {
+			sd = math.Sqrt(ss / float64(len(c)))
+		}
+		if !(sd > 0) || math.IsInf(sd, 0) {
+			sd = 1
+		}
+		shift[j], scale[j] = mu, sd
+	}
+	return shift, scale
+}
+
+// augment maps score combinations and residual combinations of the raw
+// columns to the basis [1, b] of the cached moments:
+//
+//	Σ_j v_j A_j = (Σ_j v_j shift_j)·1 + Σ_j (v_j scale_j)·b_j
+func (hc *hcLink) augment(w []combo, r [][]float64) ([]combo, [][]float64) {
+	k := len(hc.shift)
+	w2 := make([]combo, len(w))
+	for a, wa := range w {
+		c0 := 0.0
+		out := make(combo, 0, len(wa)+1)
+		for _, e := range wa {
+			c0 += e.c * hc.shift[e.j]
+		}
+		if c0 != 0 {
+			out = append(out, term{0, c0})
+		}
+		for _, e := range wa {
+			out = append(out, term{e.j + 1, e.c * hc.scale[e.j]})
+		}
+		w2[a] = out
+	}
+	r2 := make([][]float64, len(r))
+	for p, rp := range r {
+		v := make([]float64, k+1)
+		for j, x := range rp {
+			v[0] += x * hc.shift[j]
+			v[j+1] = x * hc.scale[j]
+		}
+		r2[p] = v
+	}
+	return w2, r2
 }
 
 // fourthLen returns C(k+3, 4), the number of distinct fourth-order
@@ -133,7 +208,19 @@ func fourthIndex(j, k, l, m int) int {
 // (j,k) with k ≤ l are the first (l+1)(l+2)/2 ones, so their sums are a
 // matrix-vector product.
 func fourthMoments(cols [][]float64, workers int) []float64 {
+	return fourthMomentsAffine(cols, nil, nil, workers)
+}
+
+// fourthMomentsAffine is fourthMoments of the K+1 columns
+// [1, (A_1-shift_1)/scale_1, …, (A_K-shift_K)/scale_K] when shift and
+// scale are given, and of the K raw columns when they are nil. The
+// transformed columns are formed a block of rows at a time.
+func fourthMomentsAffine(cols [][]float64, shift, scale []float64, workers int) []float64 {
+	affine := shift != nil
 	k := len(cols)
+	if affine {
+		k++
+	}
 	n := len(cols[0])
 	nq := fourthLen(k)
 	np := k * (k + 1) / 2
@@ -150,16 +237,36 @@ func fourthMoments(cols [][]float64, workers int) []float64 {
 		go func() {
 			defer wg.Done()
 			pairs := make([]float64, np*fourthBlock)
+			var std [][]float64
+			if affine {
+				std = make([][]float64, k)
+				for j := range std {
+					std[j] = make([]float64, fourthBlock)
+				}
+				for i := range std[0] {
+					std[0][i] = 1
+				}
+			}
 			for c := range next {
 				lo, hi := c*chunkRows, min((c+1)*chunkRows, n)
 				acc := make([]float64, nq)
 				for b0 := lo; b0 < hi; b0 += fourthBlock {
 					b1 := min(b0+fourthBlock, hi)
 					nb := b1 - b0
+					col := func(j int) []float64 { return cols[j][b0:b1] }
+					if affine {
+						for j := 1; j < k; j++ {
+							src, dst, sh, inv := cols[j-1][b0:b1], std[j][:nb], shift[j-1], 1/scale[j-1]
+							for i, v := range src {
+								dst[i] = (v - sh) * inv
+							}
+						}
+						col = func(j int) []float64 { return std[j][:nb] }
+					}
 					for kk := 0; kk < k; kk++ {
-						xk := cols[kk][b0:b1]
+						xk := col(kk)
 						for j := 0; j <= kk; j++ {
-							xj := cols[j][b0:b1]
+							xj := col(j)
 							dst := pairs[(j+kk*(kk+1)/2)*nb:][:nb]
 							for i, v := range xj {
 								dst[i] = v * xk[i]

@@ -468,3 +468,50 @@ func BenchmarkScoreCovHC1(b *testing.B) {
 		}
 	}
 }
+
+// TestScoreCovLargeMeans: level data with large means and comparatively
+// small residuals (units around 1e6, prices around 300, an intercept)
+// must give the same HC1 score covariance from the cached moments as from
+// a direct pass over the rows; raw fourth moments would lose the
+// residual's digits to cancellation (generated data, property check).
+func TestScoreCovLargeMeans(t *testing.T) {
+	for _, noise := range []float64{3000, 10, 1} {
+		rng := rand.New(rand.NewPCG(41, 42))
+		n := 8000
+		y, x, one, z := make([]float64, n), make([]float64, n), make([]float64, n), make([]float64, n)
+		for i := range y {
+			z[i] = 50 + rng.NormFloat64()
+			x[i] = 300 + 2*z[i] + rng.NormFloat64()
+			y[i] = 2e6 - 1500*x[i] + noise*rng.NormFloat64()
+			one[i] = 1
+		}
+		cols := [][]float64{y, x, one, z}
+		m := Accumulate(cols, []string{"units", "price", "intercept", "cost"}, nil, 2)
+		md := Model{Y: 0, Endog: []int{1}, Exog: []int{2}, Instr: []int{3}}
+		f, err := Estimate(m, md, TSLS, HC1)
+		if err != nil {
+			t.Fatal(err)
+		}
+		w := []int{1, 2, 3}
+		r := [][]float64{f.Residual()}
+		got, err := m.ScoreCov(w, r, -1)
+		if err != nil {
+			t.Fatal(err)
+		}
+		d := len(w)
+		want := make([]float64, d*d)
+		wc := make([]combo, d)
+		for a, j := range w {
+			wc[a] = combo{{j, 1}}
+		}
+		rowScoreCov(want, cols, wc, r, 1)
+		for a := 0; a < d; a++ {
+			for b := a; b < d; b++ {
+				g, wv := got.At(a, b), want[a*d+b]
+				if math.Abs(g-wv) > 1e-9*math.Sqrt(want[a*d+a]*want[b*d+b]) {
+					t.Errorf("noise %g: S[%d,%d] = %.12g from cached moments, %.12g from the rows", noise, a, b, g, wv)
+				}
+			}
+		}
+	}
+}

@@ -2,6 +2,7 @@ package ivcore
 
 import (
 	"errors"
+	"math"
 	"runtime"
 	"sync"
 
@@ -163,12 +164,39 @@ func (m *Moments) rowScoreSum(w []combo, r [][]float64) ([]float64, error) {
 	d := len(w) * len(r)
 	out := make([]float64, d*d)
 	if m4 := src.fourth(hc); m4 != nil {
-		fourthScoreCov(out, m4, len(src.Cols), w, r)
-		return out, nil
+		wa, ra := hc.augment(w, r)
+		if !cancels(src, r, ra) {
+			fourthScoreCov(out, m4, len(src.Cols)+1, wa, ra)
+			return out, nil
+		}
 	}
 	hc.passes.Add(1)
 	rowScoreCov(out, src.Cols, w, r, runtime.NumCPU())
 	return out, nil
+}
+
+// cancelRatio bounds how small a residual may be, in root mean square,
+// against the sum of its absolute coefficients on the centred and scaled
+// basis, before the contraction of fourth moments would lose more than
+// about 1e-10 of the score covariance to cancellation; below it, the
+// statistic takes its own pass over the rows.
+const cancelRatio = 1e-3
+
+// cancels reports whether any residual combination r (of src's columns;
+// ra the same on the basis of the cached moments) is so small against its
+// terms that the fourth-moment contraction would lose digits.
+func cancels(src *Moments, r, ra [][]float64) bool {
+	for p, rp := range r {
+		size := 0.0
+		for _, v := range ra[p] {
+			size += math.Abs(v)
+		}
+		rms := math.Sqrt(src.quad(rp) / float64(max(src.N, 1)))
+		if rms < cancelRatio*size {
+			return true
+		}
+	}
+	return false
 }
 
 // outerAdd adds the upper triangle of s sᵀ into out (d×d row-major).
