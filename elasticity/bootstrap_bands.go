@@ -121,7 +121,11 @@ func BootstrapCross(c *demand.CrossPrice, B int, seed uint64, progress func(int)
 		pcodes, _, _ := d.Panel.IDs(d.ClusterNames[0])
 		cd := d.Moments.Clusters[0].Dim
 		to := make([]int32, cd.G)
-		for j, row := range d.Rows {
+		for j := 0; j < d.N; j++ {
+			row := j // a design that uses every row may leave Rows nil
+			if d.Rows != nil {
+				row = int(d.Rows[j])
+			}
 			lab := labels[pcodes[row]]
 			g, ok := global[lab]
 			if !ok {

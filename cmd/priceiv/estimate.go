@@ -102,7 +102,7 @@ flags override it.`,
 						func(w io.Writer, f string) error { return elasticity.WritePricing(w, rep, f) })
 				})
 			case spec.Cross:
-				c, stats, err := runCross(panel, spec)
+				c, stats, prepared, err := runCross(panel, spec)
 				if err != nil {
 					return err
 				}
@@ -126,7 +126,7 @@ flags override it.`,
 					if prod == "" {
 						prod = "product"
 					}
-					if owners, err = elasticity.ProductOwners(panel, prod, ownerCol); err != nil {
+					if owners, err = elasticity.ProductOwners(prepared, prod, ownerCol); err != nil {
 						return err
 					}
 				}
@@ -291,11 +291,12 @@ func runProducts(panel *demand.Panel, spec *demand.Spec) (*demand.ProductTable, 
 }
 
 // runCross fits the cross-price elasticity matrix (--cross) and returns
-// each product's price and quantity statistics for margins.
-func runCross(panel *demand.Panel, spec *demand.Spec) (*demand.CrossPrice, map[string]demand.PriceStats, error) {
+// each product's price and quantity statistics for margins, and the
+// prepared panel (after --derive and --where).
+func runCross(panel *demand.Panel, spec *demand.Spec) (*demand.CrossPrice, map[string]demand.PriceStats, *demand.Panel, error) {
 	p, _, err := demand.Prepare(panel, spec)
 	if err != nil {
-		return nil, nil, err
+		return nil, nil, nil, err
 	}
 	s := *spec
 	if s.Product == "" {
@@ -303,10 +304,10 @@ func runCross(panel *demand.Panel, spec *demand.Spec) (*demand.CrossPrice, map[s
 	}
 	c, err := demand.EstimateCross(p, &s, 0)
 	if err != nil {
-		return nil, nil, err
+		return nil, nil, nil, err
 	}
 	stats, err := elasticity.ProductStats(p, s.Product, s.Price, s.Quantity)
-	return c, stats, err
+	return c, stats, p, err
 }
 
 // diagnose runs the instrument diagnostics of a pooled fit.
