@@ -405,6 +405,13 @@ func finishGrouped(g *Grouped, yName, xName string, dg *Diagnostics) {
 	g.Meaning = fmt.Sprintf("Rows with %s %s%s have mean %s %s by %s and mean %s %s by %s than rows %s: the slope between the two points is %s (s.e. %s), beside the %s estimate %s.",
 		g.Shifter, split, where, xName, updown(dx), fmtG(math.Abs(dx)), yName, updown(dy), fmtG(math.Abs(dy)), below,
 		fmtG(float64(g.Slope)), fmtG(float64(g.StdError)), dg.Estimator, fmtG(float64(g.Estimate)))
+	if se := float64(g.StdError); se > 0 && math.Abs(float64(g.Slope-g.Estimate)) > 3*se {
+		g.Meaning += " The two differ by more than three standard errors: the two-point picture leaves the controls in"
+		if g.Version == "raw" {
+			g.Meaning += " and the fixed effects"
+		}
+		g.Meaning += ", and any of them that moves with the shifter (season, temperature, promotions) shifts both points, so read it as an illustration, not as a check on the estimate."
+	}
 }
 
 func updown(d float64) string {
