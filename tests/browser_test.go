@@ -376,7 +376,7 @@ func TestReportInBrowser(t *testing.T) {
 		}
 	}
 	// Six pictures for the demo: elasticities, demand curves, contribution,
-	// two first stages and the grouped picture (issue 5's list, with the
+	// two first stages and the grouped picture (the report's plot list, with the
 	// first stage drawn for the pooled and the per-product models).
 	if len(found) != 6 {
 		t.Errorf("report.html holds %d pictures, want 6: %v", len(found), found)

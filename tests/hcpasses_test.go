@@ -38,8 +38,8 @@ func hcDemoDesign(t *testing.T) *demand.Design {
 	return d
 }
 
-// TestHC1OnePass checks issue 6, item 4 ("HC1-type statistics in one
-// extra pass at most") on the demo market: the fit with --vcov hc1, its
+// TestHC1OnePass checks the design rule "HC1-type statistics in one
+// extra pass at most" on the demo market: the fit with --vcov hc1, its
 // first stage and every part of the shifter diagnostics (first-stage
 // details, weak-instrument statistics, over-identification, the
 // control-function endogeneity test on transformed moments,
