@@ -50,3 +50,61 @@ func WriteFileAtomic(path string, write func(w io.Writer) error) error {
 	ok = true
 	return nil
 }
+
+// NamedFile is the content of one output file, named relative to its
+// folder.
+type NamedFile struct {
+	Name string
+	Data []byte
+}
+
+// WriteFilesAtomic writes a set of files into dir: every file goes to a
+// temporary file beside its target (written and synced), and only when all
+// are written are they renamed over their targets, so a failure while
+// writing leaves every previous file as it was. Other files in dir are
+// never touched. A target that is a folder is an error.
+func WriteFilesAtomic(dir string, files []NamedFile) error {
+	tmps := make([]string, len(files))
+	cleanup := func() {
+		for _, t := range tmps {
+			if t != "" {
+				os.Remove(t)
+			}
+		}
+	}
+	for i, f := range files {
+		target := filepath.Join(dir, f.Name)
+		if st, err := os.Stat(target); err == nil && st.IsDir() {
+			cleanup()
+			return fmt.Errorf("cannot write %s: it is a folder", target)
+		}
+		tf, err := os.CreateTemp(dir, "."+f.Name+".tmp-*")
+		if err != nil {
+			cleanup()
+			return fmt.Errorf("cannot write %s: %w", target, err)
+		}
+		tmps[i] = tf.Name()
+		_, werr := tf.Write(f.Data)
+		if werr == nil {
+			werr = tf.Sync()
+		}
+		if werr == nil {
+			werr = tf.Chmod(0o644)
+		}
+		if err := tf.Close(); werr == nil {
+			werr = err
+		}
+		if werr != nil {
+			cleanup()
+			return fmt.Errorf("writing %s: %w", target, werr)
+		}
+	}
+	for i, f := range files {
+		if err := os.Rename(tmps[i], filepath.Join(dir, f.Name)); err != nil {
+			cleanup()
+			return fmt.Errorf("writing %s: %w", filepath.Join(dir, f.Name), err)
+		}
+		tmps[i] = ""
+	}
+	return nil
+}

@@ -6,7 +6,6 @@ import (
 	"fmt"
 	"io"
 	"os"
-	"path/filepath"
 
 	"github.com/gocarina/gocsv"
 )
@@ -66,17 +65,13 @@ func WriteReport(dir string, r *ReportData) error {
 		return fmt.Errorf("%s is a file, not a folder: give a folder for the report (it is created if missing)", dir)
 	}
 	r.Record.Outputs = r.ReportFiles()
-	type out struct {
-		name string
-		data []byte
-	}
-	var files []out
+	var files []NamedFile
 	render := func(name string, write func(io.Writer) error) error {
 		var b bytes.Buffer
 		if err := write(&b); err != nil {
 			return fmt.Errorf("%s: %w", name, err)
 		}
-		files = append(files, out{name, b.Bytes()})
+		files = append(files, NamedFile{name, b.Bytes()})
 		return nil
 	}
 	if err := render(ReportHTMLFile, func(w io.Writer) error { return WriteHTML(w, r) }); err != nil {
@@ -103,46 +98,5 @@ func WriteReport(dir string, r *ReportData) error {
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		return fmt.Errorf("cannot create the report folder: %w", err)
 	}
-	// Write every file beside its target, then rename them all.
-	tmps := make([]string, len(files))
-	cleanup := func() {
-		for _, t := range tmps {
-			if t != "" {
-				os.Remove(t)
-			}
-		}
-	}
-	for i, f := range files {
-		target := filepath.Join(dir, f.name)
-		if st, err := os.Stat(target); err == nil && st.IsDir() {
-			cleanup()
-			return fmt.Errorf("cannot write %s: it is a folder", target)
-		}
-		tf, err := os.CreateTemp(dir, "."+f.name+".tmp-*")
-		if err != nil {
-			cleanup()
-			return fmt.Errorf("cannot write %s: %w", target, err)
-		}
-		tmps[i] = tf.Name()
-		_, werr := tf.Write(f.data)
-		cerr := tf.Chmod(0o644)
-		if werr == nil {
-			werr = cerr
-		}
-		if err := tf.Close(); werr == nil {
-			werr = err
-		}
-		if werr != nil {
-			cleanup()
-			return fmt.Errorf("writing %s: %w", target, werr)
-		}
-	}
-	for i, f := range files {
-		if err := os.Rename(tmps[i], filepath.Join(dir, f.name)); err != nil {
-			cleanup()
-			return fmt.Errorf("writing %s: %w", filepath.Join(dir, f.name), err)
-		}
-		tmps[i] = ""
-	}
-	return nil
+	return WriteFilesAtomic(dir, files)
 }

@@ -30,7 +30,7 @@ them as lines of a CSV file with a header (row 1 is line 2); they match the
 CSV file's lines unless it had blank lines or quoted line breaks.`,
 		Example: `  priceiv convert sales.csv --out sales.parquet
   priceiv estimate sales.parquet --quantity units --price price \
-      --shifters bean_index,freight_index --fe product*store,week --cluster store
+      --shifters bean_index,freight_index --fe 'product*store,week' --cluster store
 
   # a semicolon-separated export, copy written beside it as week12.parquet
   priceiv convert exports/week12.csv --delimiter ';'`,

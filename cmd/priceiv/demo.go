@@ -1,10 +1,12 @@
 package main
 
 import (
+	"bytes"
 	"fmt"
 	"io"
 	"os"
 	"path/filepath"
+	"strings"
 
 	"github.com/spf13/cobra"
 
@@ -27,7 +29,7 @@ estimates can be compared with the truth.`,
 		Example: `  priceiv demo --out ./coldbrew
   priceiv demo --out ./small --products 3 --stores 20 --weeks 52 --seed 7
   priceiv estimate ./coldbrew/coldbrew_panel.csv --quantity units --price price \
-      --shifters bean_index,freight_index --controls temperature --fe product*store --cluster store`,
+      --shifters bean_index,freight_index --controls temperature --fe 'product*store' --cluster store`,
 		Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
 			cmd.SilenceUsage = true
@@ -43,10 +45,19 @@ estimates can be compared with the truth.`,
 			}
 			panelPath := filepath.Join(out, "coldbrew_panel.csv")
 			truthPath := filepath.Join(out, "coldbrew_truth.json")
-			if err := elasticity.WriteFileAtomic(panelPath, m.WriteCSV); err != nil {
+			var panelCSV, truth bytes.Buffer
+			if err := m.WriteCSV(&panelCSV); err != nil {
 				return err
 			}
-			if err := elasticity.WriteFileAtomic(truthPath, m.WriteTruthJSON); err != nil {
+			if err := m.WriteTruthJSON(&truth); err != nil {
+				return err
+			}
+			// Both files or neither: a panel never sits beside another
+			// panel's truth.
+			if err := elasticity.WriteFilesAtomic(out, []elasticity.NamedFile{
+				{Name: filepath.Base(panelPath), Data: panelCSV.Bytes()},
+				{Name: filepath.Base(truthPath), Data: truth.Bytes()},
+			}); err != nil {
 				return err
 			}
 			w := cmd.OutOrStdout()
@@ -66,8 +77,16 @@ estimates can be compared with the truth.`,
 func printSuggested(w io.Writer, m *demo.Market, path string) error {
 	s := demoSpec(m)
 	_, err := fmt.Fprintf(w, "try: priceiv estimate %s --quantity %s --price %s --shifters %s --controls %s --fe %s --cluster %s\n",
-		path, s.Quantity, s.Price, join(s.Shifters), join(s.Controls), join(s.FE), join(s.Cluster))
+		path, s.Quantity, s.Price, join(s.Shifters), join(s.Controls), shellQuote(join(s.FE)), join(s.Cluster))
 	return err
+}
+
+// shellQuote quotes a flag value that a shell would otherwise expand.
+func shellQuote(v string) string {
+	if strings.ContainsAny(v, "*?[ ") {
+		return "'" + v + "'"
+	}
+	return v
 }
 
 func join(s []string) string {

@@ -38,7 +38,7 @@ The prices file is comma-separated with a header: product and price are
 required; unit_cost, quantity (units per period) and owner are optional.`,
 		Example: `  # raise the oat latte can by 5 percent
   priceiv estimate sales.csv --quantity units --price price --shifters bean_index \
-      --fe product*store --cluster store --format json --out est.json
+      --fe 'product*store' --cluster store --format json --out est.json
   priceiv simulate --elasticities est.json --prices prices.csv --change 'oat_latte_can=+5%'
 
   # two moves at once, one to a new shelf price, as JSON for a spreadsheet tool
