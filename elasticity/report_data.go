@@ -1,10 +1,7 @@
 package elasticity
 
 import (
-	"bytes"
 	"math"
-	"strconv"
-	"strings"
 
 	"priceiv/supplyshifters"
 )
@@ -12,68 +9,11 @@ import (
 // Number is a float64 that is written as JSON null and as an empty CSV
 // cell when it is not a finite number (a value that does not apply, or an
 // unbounded band end), so that every table of a report encodes without
-// failure. Null and an empty cell read back as NaN.
-type Number float64
+// failure: the same type as the diagnostics' numbers.
+type Number = supplyshifters.Num
 
 // nan is the Number for "does not apply".
 var nan = Number(math.NaN())
-
-// F returns x as a float64.
-func (x Number) F() float64 { return float64(x) }
-
-// Finite reports whether x is neither NaN nor infinite.
-func (x Number) Finite() bool {
-	f := float64(x)
-	return !math.IsNaN(f) && !math.IsInf(f, 0)
-}
-
-// MarshalJSON writes the shortest decimal that reads back to the same
-// float64, or null.
-func (x Number) MarshalJSON() ([]byte, error) {
-	if !x.Finite() {
-		return []byte("null"), nil
-	}
-	return strconv.AppendFloat(nil, float64(x), 'g', -1, 64), nil
-}
-
-// UnmarshalJSON reads a number, or null as NaN.
-func (x *Number) UnmarshalJSON(b []byte) error {
-	b = bytes.TrimSpace(b)
-	if string(b) == "null" {
-		*x = nan
-		return nil
-	}
-	f, err := strconv.ParseFloat(string(b), 64)
-	if err != nil {
-		return err
-	}
-	*x = Number(f)
-	return nil
-}
-
-// MarshalCSV writes the shortest decimal that reads back to the same
-// float64, or an empty cell.
-func (x Number) MarshalCSV() (string, error) {
-	if !x.Finite() {
-		return "", nil
-	}
-	return strconv.FormatFloat(float64(x), 'g', -1, 64), nil
-}
-
-// UnmarshalCSV reads a number, or an empty cell as NaN.
-func (x *Number) UnmarshalCSV(s string) error {
-	s = strings.TrimSpace(s)
-	if s == "" {
-		*x = nan
-		return nil
-	}
-	f, err := strconv.ParseFloat(s, 64)
-	if err != nil {
-		return err
-	}
-	*x = Number(f)
-	return nil
-}
 
 // Text is a label written into a table (a product or shifter name, a
 // warning). In CSV cells it is neutralised against formula injection with

@@ -4,14 +4,19 @@ import (
 	"bytes"
 	"math"
 	"strconv"
+	"strings"
 )
 
-// Num is a float64 that encodes as JSON null when it is NaN or infinite
-// (JSON has no such numbers), so that json.Marshal of a Diagnostics value
-// never fails. A statistic is NaN when it is undefined for the data at
-// hand (for example a partial R² when the regressor has no variation left).
-// Null decodes back to NaN.
+// Num is a float64 that encodes as JSON null and as an empty CSV cell
+// when it is NaN or infinite (JSON has no such numbers), so that
+// json.Marshal of a Diagnostics value, or of any report table, never
+// fails. A statistic is NaN when it is undefined for the data at hand (for
+// example a partial R² when the regressor has no variation left). Null and
+// an empty cell decode back to NaN.
 type Num float64
+
+// F returns x as a float64.
+func (x Num) F() float64 { return float64(x) }
 
 // Finite reports whether x is neither NaN nor infinite.
 func (x Num) Finite() bool {
@@ -35,6 +40,30 @@ func (x *Num) UnmarshalJSON(b []byte) error {
 		return nil
 	}
 	f, err := strconv.ParseFloat(string(b), 64)
+	if err != nil {
+		return err
+	}
+	*x = Num(f)
+	return nil
+}
+
+// MarshalCSV writes the shortest decimal that reads back to the same
+// float64, or an empty cell.
+func (x Num) MarshalCSV() (string, error) {
+	if !x.Finite() {
+		return "", nil
+	}
+	return strconv.FormatFloat(float64(x), 'g', -1, 64), nil
+}
+
+// UnmarshalCSV reads a number, or an empty cell as NaN.
+func (x *Num) UnmarshalCSV(s string) error {
+	s = strings.TrimSpace(s)
+	if s == "" {
+		*x = Num(math.NaN())
+		return nil
+	}
+	f, err := strconv.ParseFloat(s, 64)
 	if err != nil {
 		return err
 	}
