@@ -2,7 +2,6 @@ package elasticity
 
 import (
 	"encoding/csv"
-	"encoding/json"
 	"io"
 	"strconv"
 	"strings"
@@ -14,19 +13,11 @@ import (
 // with supplyshifters' writers, JSON as an object {"diagnostics": …},
 // CSV as one row per statistic.
 func WriteDiagnostics(w io.Writer, dg *supplyshifters.Diagnostics, format string) error {
-	switch format {
-	case "text", "":
-		return supplyshifters.WriteText(w, dg)
-	case "markdown":
-		return supplyshifters.WriteMarkdown(w, dg)
-	case "json":
-		enc := json.NewEncoder(w)
-		enc.SetIndent("", "  ")
-		return enc.Encode(map[string]any{"diagnostics": dg})
-	case "csv":
-		return writeDiagnosticsCSV(w, dg)
-	}
-	return CheckFormat(format)
+	return writeFormat(w, format, map[string]any{"diagnostics": dg}, writers{
+		text:     func(w io.Writer) error { return supplyshifters.WriteText(w, dg) },
+		csv:      func(w io.Writer) error { return writeDiagnosticsCSV(w, dg) },
+		markdown: func(w io.Writer) error { return supplyshifters.WriteMarkdown(w, dg) },
+	})
 }
 
 func writeDiagnosticsCSV(w io.Writer, dg *supplyshifters.Diagnostics) error {

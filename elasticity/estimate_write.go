@@ -2,7 +2,6 @@ package elasticity
 
 import (
 	"encoding/csv"
-	"encoding/json"
 	"fmt"
 	"io"
 	"math"
@@ -27,19 +26,11 @@ func CheckFormat(f string) error {
 
 // WriteEstimate writes an estimation result in the given format.
 func WriteEstimate(w io.Writer, r *demand.Result, format string) error {
-	switch format {
-	case "json":
-		enc := json.NewEncoder(w)
-		enc.SetIndent("", "  ")
-		return enc.Encode(r)
-	case "csv":
-		return writeEstimateCSV(w, r)
-	case "markdown":
-		return writeEstimateMarkdown(w, r)
-	case "text", "":
-		return writeEstimateText(w, r)
-	}
-	return CheckFormat(format)
+	return writeFormat(w, format, r, writers{
+		text:     func(w io.Writer) error { return writeEstimateText(w, r) },
+		csv:      func(w io.Writer) error { return writeEstimateCSV(w, r) },
+		markdown: func(w io.Writer) error { return writeEstimateMarkdown(w, r) },
+	})
 }
 
 func pct(level float64) string { return strconv.FormatFloat(level*100, 'g', -1, 64) + "%" }

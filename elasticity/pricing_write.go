@@ -2,7 +2,6 @@ package elasticity
 
 import (
 	"encoding/csv"
-	"encoding/json"
 	"fmt"
 	"io"
 	"math"
@@ -68,20 +67,14 @@ func (r *PricingReport) Cautions() []string {
 
 // WritePricing writes a pricing report as text, json, csv or markdown.
 func WritePricing(w io.Writer, r *PricingReport, format string) error {
-	switch format {
-	case "json":
-		enc := json.NewEncoder(w)
-		enc.SetIndent("", "  ")
-		return enc.Encode(r.jsonReport())
-	case "csv":
-		return writePricingCSV(w, r)
-	case "markdown":
-		return writePricingMarkdown(w, r)
-	case "text", "":
-		_, err := io.WriteString(w, r.text())
-		return err
-	}
-	return CheckFormat(format)
+	return writeFormat(w, format, r.jsonReport(), writers{
+		text: func(w io.Writer) error {
+			_, err := io.WriteString(w, r.text())
+			return err
+		},
+		csv:      func(w io.Writer) error { return writePricingCSV(w, r) },
+		markdown: func(w io.Writer) error { return writePricingMarkdown(w, r) },
+	})
 }
 
 // numKind says how a number is written.

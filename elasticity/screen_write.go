@@ -2,7 +2,6 @@ package elasticity
 
 import (
 	"encoding/csv"
-	"encoding/json"
 	"fmt"
 	"io"
 	"math"
@@ -18,19 +17,11 @@ import (
 // solid, the rule, notes), json (the ScreenResult), csv (one row per
 // combination; text cells neutralised with SafeCell) or markdown.
 func WriteScreen(w io.Writer, res *supplyshifters.ScreenResult, format string) error {
-	switch format {
-	case "text", "":
-		return writeScreenText(w, res)
-	case "json":
-		enc := json.NewEncoder(w)
-		enc.SetIndent("", "  ")
-		return enc.Encode(res)
-	case "csv":
-		return writeScreenCSV(w, res)
-	case "markdown":
-		return writeScreenMarkdown(w, res)
-	}
-	return CheckFormat(format)
+	return writeFormat(w, format, res, writers{
+		text:     func(w io.Writer) error { return writeScreenText(w, res) },
+		csv:      func(w io.Writer) error { return writeScreenCSV(w, res) },
+		markdown: func(w io.Writer) error { return writeScreenMarkdown(w, res) },
+	})
 }
 
 // scrCells lays out one row of the screen table as display strings, in

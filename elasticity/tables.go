@@ -2,7 +2,6 @@ package elasticity
 
 import (
 	"encoding/csv"
-	"encoding/json"
 	"fmt"
 	"io"
 	"math"
@@ -32,37 +31,21 @@ type crossPriceJSON struct {
 // WriteProductTable writes a per-product own-price elasticity table as
 // text, json, csv or markdown.
 func WriteProductTable(w io.Writer, t *demand.ProductTable, format string) error {
-	switch format {
-	case "json":
-		enc := json.NewEncoder(w)
-		enc.SetIndent("", "  ")
-		return enc.Encode(productTableJSON{t, Cautions})
-	case "csv":
-		return writeProductCSV(w, t)
-	case "markdown":
-		return writeProductMarkdown(w, t)
-	case "text", "":
-		return writeProductText(w, t)
-	}
-	return CheckFormat(format)
+	return writeFormat(w, format, productTableJSON{t, Cautions}, writers{
+		text:     func(w io.Writer) error { return writeProductText(w, t) },
+		csv:      func(w io.Writer) error { return writeProductCSV(w, t) },
+		markdown: func(w io.Writer) error { return writeProductMarkdown(w, t) },
+	})
 }
 
 // WriteCrossPrice writes a cross-price elasticity matrix as text, json,
 // csv or markdown.
 func WriteCrossPrice(w io.Writer, c *demand.CrossPrice, format string) error {
-	switch format {
-	case "json":
-		enc := json.NewEncoder(w)
-		enc.SetIndent("", "  ")
-		return enc.Encode(crossPriceJSON{c, Cautions})
-	case "csv":
-		return writeCrossCSV(w, c)
-	case "markdown":
-		return writeCrossMarkdown(w, c)
-	case "text", "":
-		return writeCrossText(w, c)
-	}
-	return CheckFormat(format)
+	return writeFormat(w, format, crossPriceJSON{c, Cautions}, writers{
+		text:     func(w io.Writer) error { return writeCrossText(w, c) },
+		csv:      func(w io.Writer) error { return writeCrossCSV(w, c) },
+		markdown: func(w io.Writer) error { return writeCrossMarkdown(w, c) },
+	})
 }
 
 // FillRobust fills the weak-instrument-robust columns of a per-product
