@@ -226,20 +226,42 @@ func EstimateByProduct(p *Panel, s *Spec, workers int) (*ProductTable, error) {
 	if missing > 0 {
 		t.Dropped = append(t.Dropped, Drop{Reason: "missing value", Column: s.Product, Rows: missing})
 	}
-	var failures []string
 	keep := make([]bool, p.N)
+	var names []string
 	for _, l := range used {
+		names = append(names, levels[l])
+	}
+	err = fillProducts(t, names, func(k int) (*Design, error) {
+		l := used[k]
 		for i, c := range codes {
 			keep[i] = c == int32(l)
 		}
-		sub := p.Subset(keep)
-		row, pf, err := fitOneProduct(sub, s, levels[l], workers)
+		return Build(p.Subset(keep), s, workers)
+	})
+	if err != nil {
+		return nil, err
+	}
+	return t, nil
+}
+
+// fillProducts fits the design of each named product, in order, into
+// the table. A product whose design or fit fails gets a row with Failed
+// set; errors of the spec itself end the table.
+func fillProducts(t *ProductTable, names []string, design func(k int) (*Design, error)) error {
+	var failures []string
+	for k, name := range names {
+		var row ProductElasticity
+		var pf *ProductFit
+		d, err := design(k)
+		if err == nil {
+			row, pf, err = productRow(d, name)
+		}
 		if errors.Is(err, ErrSpec) || errors.Is(err, ErrUnknownColumn) || errors.Is(err, ErrNotNumeric) {
-			return nil, err // the same for every product
+			return err // the same for every product
 		}
 		if err != nil {
-			failures = append(failures, fmt.Sprintf("%s: %v", levels[l], err))
-			row = ProductElasticity{Product: levels[l], Band: "wald", Level: t.Level, Failed: true,
+			failures = append(failures, fmt.Sprintf("%s: %v", name, err))
+			row = ProductElasticity{Product: name, Band: "wald", Level: t.Level, Failed: true,
 				Warnings: []string{"not estimated: " + err.Error()}}
 		} else {
 			t.N += row.N
@@ -254,13 +276,13 @@ func EstimateByProduct(p *Panel, s *Spec, workers int) (*ProductTable, error) {
 		t.Elasticities = append(t.Elasticities, row)
 		t.Fits = append(t.Fits, pf)
 	}
-	if len(failures) == len(used) {
-		return nil, fmt.Errorf("no product could be estimated: %s", strings.Join(failures, "; "))
+	if len(failures) == len(names) {
+		return fmt.Errorf("no product could be estimated: %s", strings.Join(failures, "; "))
 	}
 	if t.Form == "" {
 		t.Form = "log-log"
 	}
-	return t, nil
+	return nil
 }
 
 func newProductTable(mode string, p *Panel, s *Spec) *ProductTable {
@@ -294,12 +316,8 @@ func addDrop(list *[]Drop, d Drop) {
 	*list = append(*list, d)
 }
 
-// fitOneProduct builds and fits the model on one product's rows.
-func fitOneProduct(sub *Panel, s *Spec, name string, workers int) (ProductElasticity, *ProductFit, error) {
-	d, err := Build(sub, s, workers)
-	if err != nil {
-		return ProductElasticity{}, nil, err
-	}
+// productRow fits one product's design and gives its row of the table.
+func productRow(d *Design, name string) (ProductElasticity, *ProductFit, error) {
 	fit, fs, err := d.Fit()
 	if err != nil {
 		return ProductElasticity{}, nil, err

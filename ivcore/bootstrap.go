@@ -226,6 +226,9 @@ func replicateStream(r int) uint64 {
 // clusterSizes counts the rows of each cluster, or returns nil when the
 // dimension carries no codes for the rows.
 func clusterSizes(d ClusterDim, n int) []int {
+	if d.Codes == nil && len(d.Sizes) == d.G && d.G > 0 {
+		return d.Sizes
+	}
 	if len(d.Codes) != n || n == 0 {
 		return nil
 	}

@@ -20,6 +20,9 @@ type ClusterDim struct {
 	// belong to effects nested within this clustering dimension. They are
 	// left out of k in the small-sample factor of the cluster covariance.
 	NestedDoF int
+	// Sizes, when Codes is nil, holds the number of rows in each cluster
+	// (moments computed elsewhere); nil when unknown.
+	Sizes []int
 }
 
 // ClusterBlocks holds the per-cluster Gram matrices of one dimension:

@@ -34,6 +34,12 @@ func (m *Moments) Recode(dim int, to []int32, G int) *Moments {
 	out.Clusters = append([]*ClusterBlocks(nil), m.Clusters...)
 	dimv := cb.Dim
 	dimv.Codes, dimv.G = codes, G
+	if cb.Dim.Sizes != nil {
+		dimv.Sizes = make([]int, G)
+		for g, sz := range cb.Dim.Sizes {
+			dimv.Sizes[to[g]] += sz
+		}
+	}
 	out.Clusters[dim] = &ClusterBlocks{Dim: dimv, data: data, k: k}
 	return &out
 }

@@ -133,7 +133,8 @@ func (m *Moments) scoreCov(w []combo, r [][]float64, dim int) (*mat.SymDense, er
 // fourthCap columns, one pass over the rows.
 func (m *Moments) rowScoreSum(w []combo, r [][]float64) ([]float64, error) {
 	src, t, hc := m.rowSource()
-	if src.Cols == nil {
+	supplied := src.Cols == nil && hc.m4 != nil // fourth moments from elsewhere (SetFourth)
+	if src.Cols == nil && !supplied {
 		return nil, ErrNoRows
 	}
 	if t != nil {
@@ -163,6 +164,12 @@ func (m *Moments) rowScoreSum(w []combo, r [][]float64) ([]float64, error) {
 	}
 	d := len(w) * len(r)
 	out := make([]float64, d*d)
+	if supplied {
+		// No rows to fall back on: the contraction is the statistic.
+		wa, ra := hc.augment(w, r)
+		fourthScoreCov(out, hc.m4, len(src.Names)+1, wa, ra)
+		return out, nil
+	}
 	if m4 := src.fourth(hc); m4 != nil {
 		wa, ra := hc.augment(w, r)
 		if !cancels(src, r, ra) {

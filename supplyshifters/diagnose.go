@@ -171,9 +171,12 @@ func Diagnose(d *demand.Design, fit *ivcore.Fit, opts Options) (*Diagnostics, er
 		parts = PartAll
 	}
 	if parts&PartGrouped != 0 {
-		if len(md.Endog) != 1 {
+		switch {
+		case len(md.Endog) != 1:
 			dg.Notes = append(dg.Notes, "The grouped (Wald) estimator is shown for one endogenous regressor only.")
-		} else {
+		case d.Cols == nil:
+			dg.Notes = append(dg.Notes, "The grouped (Wald) estimator sorts rows by shifter, so it is left out when only moment sums are at hand (database or moments file).")
+		default:
 			dg.Grouped = groupedAll(d, md, vk, dg)
 		}
 	}

@@ -16,6 +16,7 @@ import (
 
 func newEstimateCmd() *cobra.Command {
 	var mf modelFlags
+	var db dbFlags
 	var format, out string
 	var useDemo bool
 	var boot int
@@ -47,15 +48,33 @@ flags override it.`,
       --outcome dq --endogenous dp --instruments dbean --cluster store
 
   # the same options kept in a file, as JSON for another program
-  priceiv estimate --spec model.yaml --format json --out result.json`,
+  priceiv estimate --spec model.yaml --format json --out result.json
+
+  # the database computes the sums: only a few kilobytes travel
+  priceiv estimate --db postgres://analyst@warehouse:5432/scanner --table coldbrew_weekly \
+      --quantity units --price price --shifters bean_index,freight_index \
+      --fe 'product*store',week --cluster store
+
+  # sums computed by another engine from the SQL of 'priceiv sql'
+  priceiv estimate --moments coldbrew_moments.csv --quantity units --price price \
+      --shifters bean_index,freight_index --fe 'product*store',week --cluster store`,
 		Args: cobra.MaximumNArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			if err := elasticity.CheckFormat(format); err != nil {
 				return err
 			}
 			cmd.SilenceUsage = true
-			spec, panel, err := loadInputs(cmd, &mf, args, useDemo)
-			if err != nil {
+			var spec *demand.Spec
+			var panel *demand.Panel
+			var err error
+			if db.active() {
+				if spec, err = resolveDBSpec(cmd, &mf); err != nil {
+					return err
+				}
+				if err := db.check(cmd, args, useDemo, spec); err != nil {
+					return err
+				}
+			} else if spec, panel, err = loadInputs(cmd, &mf, args, useDemo); err != nil {
 				return err
 			}
 			if boot < 0 || spec.Bootstrap < 0 {
@@ -79,7 +98,13 @@ flags override it.`,
 			}
 			switch {
 			case spec.By != "" || spec.Interact != "":
-				t, err := runProducts(panel, spec)
+				var t *demand.ProductTable
+				var err error
+				if db.active() {
+					t, err = runProductsDB(cmd, &db, spec)
+				} else {
+					t, err = runProducts(panel, spec)
+				}
 				if err != nil {
 					return err
 				}
@@ -142,7 +167,14 @@ flags override it.`,
 				return fmt.Errorf("--prices holds prices per product: use it with --by, --interact or --cross")
 			}
 
-			res, d, fit, err := runEstimate(panel, spec)
+			var res *demand.Result
+			var d *demand.Design
+			var fit *ivcore.Fit
+			if db.active() {
+				res, d, fit, err = runEstimateDB(cmd, &db, spec)
+			} else {
+				res, d, fit, err = runEstimate(panel, spec)
+			}
 			if err != nil {
 				return err
 			}
@@ -173,6 +205,7 @@ flags override it.`,
 		},
 	}
 	mf.register(cmd.Flags())
+	db.register(cmd.Flags())
 	cmd.Flags().BoolVar(&useDemo, "demo", false, "run on the built-in cold-brew market (generated in memory, fixed seed)")
 	cmd.Flags().IntVar(&boot, "bootstrap", 0, "cluster-bootstrap replicates for percentile bands (0: off; 999 is usual)")
 	cmd.Flags().Uint64Var(&seed, "seed", 1, "seed of the bootstrap draws (same seed, same bands on any number of cores)")
@@ -348,6 +381,25 @@ func runEstimate(panel *demand.Panel, spec *demand.Spec) (*demand.Result, *deman
 		return nil, nil, nil, err
 	}
 	d.Dropped = append(drops, d.Dropped...)
+	return fitDesign(d)
+}
+
+// runEstimateDB has the database (or a moments file) compute the moment
+// blocks and fits the design they give.
+func runEstimateDB(cmd *cobra.Command, db *dbFlags, spec *demand.Spec) (*demand.Result, *demand.Design, *ivcore.Fit, error) {
+	d, note, err := db.design(cmd, spec)
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	res, d, fit, err := fitDesign(d)
+	if err == nil {
+		res.Notes = append(res.Notes, note)
+	}
+	return res, d, fit, err
+}
+
+// fitDesign fits a design and summarises the fit with the cautions.
+func fitDesign(d *demand.Design) (*demand.Result, *demand.Design, *ivcore.Fit, error) {
 	fit, fs, err := d.Fit()
 	if err != nil {
 		return nil, nil, nil, err

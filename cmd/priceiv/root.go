@@ -24,6 +24,6 @@ Start with the built-in market of a cold-brew coffee maker:
 		Version:       version,
 		SilenceErrors: false,
 	}
-	root.AddCommand(newEstimateCmd(), newDemoCmd(), newColumnsCmd(), newSimulateCmd(), newConvertCmd(), newScreenCmd(), newReportCmd())
+	root.AddCommand(newEstimateCmd(), newDemoCmd(), newColumnsCmd(), newSimulateCmd(), newConvertCmd(), newScreenCmd(), newReportCmd(), newSQLCmd())
 	return root
 }
