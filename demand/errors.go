@@ -73,6 +73,9 @@ type UnknownColumnError struct {
 	Name   string
 	Close  []string
 	Known  int
+	// Lister says how to list the columns (default: the columns
+	// command).
+	Lister string
 }
 
 func (e *UnknownColumnError) Error() string {
@@ -80,7 +83,11 @@ func (e *UnknownColumnError) Error() string {
 	if len(e.Close) > 0 {
 		msg += "; closest names: " + strings.Join(e.Close, ", ")
 	}
-	return msg + fmt.Sprintf(" (%d columns in all; `priceiv columns FILE` lists them)", e.Known)
+	lister := e.Lister
+	if lister == "" {
+		lister = "`priceiv columns FILE` lists them"
+	}
+	return msg + fmt.Sprintf(" (%d columns in all; %s)", e.Known, lister)
 }
 
 func (e *UnknownColumnError) Unwrap() error { return ErrUnknownColumn }

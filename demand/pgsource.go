@@ -207,7 +207,8 @@ func describe(ctx context.Context, conn *pgx.Conn, p *sqlPlan, label string) err
 	for _, n := range names {
 		oid, ok := types[n]
 		if !ok {
-			return &UnknownColumnError{Source: label, Name: n, Close: closeNames(n, known, 3), Known: len(known)}
+			return &UnknownColumnError{Source: label, Name: n, Close: closeNames(n, known, 3), Known: len(known),
+				Lister: "psql's \\d TABLE lists them; in --query, name the column in the SELECT"}
 		}
 		if numeric[n] {
 			if _, ok := numericOIDs[oid]; !ok {

@@ -24,7 +24,7 @@ type stepRunner interface {
 // a script that stopped too early is caught when its result is read.
 const (
 	printSingletonRounds = 4
-	printLabelSteps      = 8
+	printLabelSteps      = 4
 	printSweeps          = 50
 )
 
