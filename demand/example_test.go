@@ -2,6 +2,7 @@ package demand_test
 
 import (
 	"fmt"
+	"strings"
 
 	"priceiv/demand"
 )
@@ -43,4 +44,29 @@ func ExampleParseDerive() {
 	fmt.Println()
 	// Output:
 	// NaN 0.0953 NaN -0.1054
+}
+
+// ExampleScript prints the SQL that has a warehouse engine compute the
+// moment blocks of a log-log demand model clustered by store; the engine's
+// result, saved as CSV, is read back by ReadMomentsFile and
+// BuildFromMoments.
+func ExampleScript() {
+	s := &demand.Spec{Quantity: "units", Price: "price", Shifters: demand.List{"bean_index"}, Cluster: demand.List{"store"}, Vcov: "cluster"}
+	sql, err := demand.Script(s, demand.SQLSource{Table: "coldbrew_weekly"}, demand.ANSI, false)
+	if err != nil {
+		fmt.Println(err)
+		return
+	}
+	for _, line := range strings.Split(sql, "\n") {
+		if strings.HasPrefix(line, "CREATE") || strings.HasPrefix(line, "GROUP BY") || strings.HasPrefix(line, "DROP") {
+			fmt.Println(line)
+		}
+	}
+	// Output:
+	// CREATE TABLE piv_prof AS
+	// GROUP BY miss, gp0;
+	// CREATE TABLE piv_blk0 AS
+	// GROUP BY g0;
+	// DROP TABLE IF EXISTS piv_prof;
+	// DROP TABLE IF EXISTS piv_blk0;
 }

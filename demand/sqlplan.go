@@ -335,8 +335,8 @@ func (p *sqlPlan) keep() string {
 }
 
 // profile writes, per reason a row is dropped (0: kept, i: first missing
-// column i), the row count and, for columns under a log, the count and
-// smallest of the non-positive values.
+// column i), the row count and, for columns under a log, the count of the
+// non-positive values and the smallest value.
 func (p *sqlPlan) profile() string {
 	var cs []string
 	for i, k := range p.miss {
@@ -354,7 +354,18 @@ func (p *sqlPlan) profile() string {
 			fmt.Sprintf("SUM(CASE WHEN v%d <= 0 THEN 1 ELSE 0 END) AS bad%d", i, i),
 			fmt.Sprintf("MIN(v%d) AS low%d", i, i))
 	}
-	q := "SELECT " + strings.Join(outer, ", ") + "\nFROM (SELECT " + strings.Join(inner, ",\n  ") + "\n  FROM " + p.from + ") AS r\nGROUP BY miss"
+	// Grouping by the first cluster's columns too lets a table
+	// partitioned by them count on its shards; the final query adds the
+	// groups up.
+	group := []string{"miss"}
+	if len(p.cls) > 0 {
+		for i, part := range p.cls[0].parts {
+			inner = append(inner, fmt.Sprintf("%s AS gp%d", quoteIdent(part), i))
+			group = append(group, fmt.Sprintf("gp%d", i))
+		}
+	}
+	outer[0] = strings.Join(group, ", ")
+	q := "SELECT " + strings.Join(outer, ", ") + "\nFROM (SELECT " + strings.Join(inner, ",\n  ") + "\n  FROM " + p.from + ") AS r\nGROUP BY " + strings.Join(group, ", ")
 	return p.create(p.t("prof"), q)
 }
 

@@ -42,45 +42,45 @@ var errStopEarly = errors.New("stop")
 // (block, key, term, value) are the moments file. check, when not nil,
 // is called with the profile's rows as soon as they exist (a connection
 // stops there when no row is usable).
-func (p *sqlPlan) run(r stepRunner, check func(final string) error) (string, error) {
+func (p *sqlPlan) run(r stepRunner, check func(final string) error) (runState, error) {
+	var st runState
 	ex := func(sql string) error {
 		_, err := r.exec(sql)
 		return err
 	}
 	for _, s := range p.prelude() {
 		if err := ex(s); err != nil {
-			return "", err
+			return st, err
 		}
 	}
 	if err := ex(p.profile()); err != nil {
-		return "", err
+		return st, err
 	}
 	if check != nil {
 		if err := check(p.unpivotProfile()); err != nil {
-			return "", err
+			return st, err
 		}
 	}
-	st := runState{}
 	if len(p.fes) == 0 {
 		rel := "(" + p.rowsSelect() + ") AS r"
 		if p.hc1 {
 			if err := ex(p.create(p.t("res"), p.rowsSelect())); err != nil {
-				return "", err
+				return st, err
 			}
 			rel = p.t("res")
 		}
 		if err := p.runBlocks(ex, rel); err != nil {
-			return "", err
+			return st, err
 		}
-		return p.unpivot(st), nil
+		return st, nil
 	}
 
 	if err := ex(p.create(p.t("rows"), p.rowsSelect())); err != nil {
-		return "", err
+		return st, err
 	}
 	if p.dialect == Postgres {
 		if err := ex("ANALYZE " + p.t("rows")); err != nil {
-			return "", err
+			return st, err
 		}
 	}
 	// Singletons, round by round, until a round deletes none.
@@ -92,7 +92,7 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (string, err
 		for e := range p.fes {
 			n, err := r.exec(p.singletons(e))
 			if err != nil {
-				return "", err
+				return st, err
 			}
 			deleted += n
 		}
@@ -103,17 +103,17 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (string, err
 	for e := range p.fes {
 		q := fmt.Sprintf("SELECT COUNT(*) AS n FROM (SELECT k%d FROM %s GROUP BY k%d HAVING COUNT(*) = 1) AS x", e, p.t("rows"), e)
 		if err := ex(p.create(p.t(fmt.Sprintf("one%d", e)), q)); err != nil {
-			return "", err
+			return st, err
 		}
 	}
 	if err := ex(p.stat()); err != nil {
-		return "", err
+		return st, err
 	}
 	var sd []float64
 	if !r.printing() {
 		v, err := r.values("SELECT " + p.sdList() + " FROM " + p.t("stat"))
 		if err != nil {
-			return "", err
+			return st, err
 		}
 		sd = v
 	}
@@ -121,13 +121,13 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (string, err
 	// Absorption: one GROUP BY per effect per sweep.
 	if len(p.fes) == 1 {
 		if err := ex(p.sweep(0, 1)); err != nil {
-			return "", err
+			return st, err
 		}
 		st.sweeps = 1
 	} else {
 		for e := 1; e < len(p.fes); e++ {
 			if err := ex(p.zeroCoef(e)); err != nil {
-				return "", err
+				return st, err
 			}
 		}
 		limit := p.maxSweeps()
@@ -137,7 +137,7 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (string, err
 		for s := 1; s <= limit; s++ {
 			for e := range p.fes {
 				if err := ex(p.sweep(e, s)); err != nil {
-					return "", err
+					return st, err
 				}
 			}
 			st.sweeps = s
@@ -148,12 +148,12 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (string, err
 			worst := 0.0
 			for e := range p.fes {
 				if err := ex(p.change(e, s)); err != nil {
-					return "", err
+					return st, err
 				}
 				if !r.printing() {
 					v, err := r.values("SELECT " + p.changeList() + " FROM " + p.t(fmt.Sprintf("chg%d_%d", e, s)))
 					if err != nil {
-						return "", err
+						return st, err
 					}
 					st.addChange(v, sd, e)
 				}
@@ -166,7 +166,7 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (string, err
 			if !r.printing() && s < limit {
 				for e := range p.fes {
 					if err := ex(p.drop(p.t(fmt.Sprintf("chg%d_%d", e, s)))); err != nil {
-						return "", err
+						return st, err
 					}
 				}
 				st.change = nil
@@ -175,13 +175,13 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (string, err
 		// Connected components of the first two effects.
 		for _, s := range p.edges() {
 			if err := ex(s); err != nil {
-				return "", err
+				return st, err
 			}
 		}
 		for t := 1; ; t++ {
 			for _, s := range p.propagate(t) {
 				if err := ex(s); err != nil {
-					return "", err
+					return st, err
 				}
 			}
 			st.labels = t
@@ -193,7 +193,7 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (string, err
 			}
 			v, err := r.values("SELECT CAST(n AS DOUBLE PRECISION) FROM " + p.t(fmt.Sprintf("moved_%d", t)))
 			if err != nil {
-				return "", err
+				return st, err
 			}
 			if v[0] == 0 || t == maxLabelSteps {
 				break
@@ -203,22 +203,22 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (string, err
 	for d := range p.dims() {
 		for e := range p.fes {
 			if err := ex(p.nested(d, e)); err != nil {
-				return "", err
+				return st, err
 			}
 		}
 	}
 	if err := ex(p.residuals(st.sweeps)); err != nil {
-		return "", err
+		return st, err
 	}
 	if p.dialect == Postgres {
 		if err := ex("ANALYZE " + p.t("res")); err != nil {
-			return "", err
+			return st, err
 		}
 	}
 	if err := p.runBlocks(ex, p.t("res")); err != nil {
-		return "", err
+		return st, err
 	}
-	return p.unpivot(st), nil
+	return st, nil
 }
 
 // runState records how a run's loops ended, for the final query.
@@ -357,7 +357,11 @@ func (p *sqlPlan) unpivotProfile() string {
 	for j, c := range p.cols {
 		parts = append(parts, row(quoteLit("model"), quoteLit(c.name), "column", fmt.Sprint(j), ""))
 	}
-	prof := p.t("prof")
+	sums := []string{"miss", "SUM(n) AS n"}
+	for i := range p.logs {
+		sums = append(sums, fmt.Sprintf("SUM(bad%d) AS bad%d", i, i), fmt.Sprintf("MIN(low%d) AS low%d", i, i))
+	}
+	prof := "(SELECT " + strings.Join(sums, ", ") + " FROM " + p.t("prof") + " GROUP BY miss) AS pr"
 	key := "CAST(miss AS VARCHAR(20))"
 	parts = append(parts, row(quoteLit("profile"), key, "n", "n", prof))
 	for i := range p.logs {
@@ -371,7 +375,37 @@ func (p *sqlPlan) unpivotProfile() string {
 // unpivot is the final query: every sum the plan computed as a row
 // (block, key, term, value).
 func (p *sqlPlan) unpivot(st runState) string {
+	parts, wide := p.final(st)
+	for _, w := range wide {
+		for i, t := range w.terms {
+			parts = append(parts, row(quoteLit(w.block), w.key, t, w.values[i], w.table))
+		}
+	}
+	return strings.Join(parts, "\nUNION ALL ")
+}
+
+// widePart is a table of the plan whose columns are terms of one block,
+// one row per key: the final query turns each column into rows, and a
+// connection reads the table as it is (fewer bytes).
+type widePart struct {
+	block, key, table string
+	terms, values     []string
+}
+
+// sql is the query reading the part as it is: the key, then the values.
+func (w widePart) sql() string {
+	s := []string{w.key + " AS key"}
+	for _, v := range w.values {
+		s = append(s, fmt.Sprintf("CAST(%s AS %s)", v, dbl))
+	}
+	return "SELECT " + strings.Join(s, ", ") + " FROM " + w.table
+}
+
+// final returns the parts of the final query: SELECTs of single rows
+// (block, key, term, value), and the tables read whole.
+func (p *sqlPlan) final(st runState) ([]string, []widePart) {
 	parts := []string{p.unpivotProfile()}
+	var wide []widePart
 	lit := quoteLit
 	parts = append(parts, row(lit("model"), lit(p.form), "form", "0", ""))
 	for e, k := range p.fes {
@@ -395,9 +429,7 @@ func (p *sqlPlan) unpivot(st runState) string {
 		terms = append(terms, "lq", "lp", "lplo", "lphi")
 	}
 	blockRows := func(block, key, from string) {
-		for _, t := range terms {
-			parts = append(parts, row(lit(block), key, t, t, from))
-		}
+		wide = append(wide, widePart{block: block, key: key, table: from, terms: terms, values: terms})
 	}
 	if len(p.cls) == 0 {
 		blockRows("total", "''", p.t("blk_all"))
@@ -438,17 +470,18 @@ func (p *sqlPlan) unpivot(st runState) string {
 		}
 	}
 	if p.hc1 {
-		shape := p.t("shape")
+		var shape []string
 		for j := range p.cols {
-			parts = append(parts, row(lit("shape"), "''", fmt.Sprintf("m%d", j), fmt.Sprintf("m%d", j), shape),
-				row(lit("shape"), "''", fmt.Sprintf("d%d", j), fmt.Sprintf("d%d", j), shape))
+			shape = append(shape, fmt.Sprintf("m%d", j), fmt.Sprintf("d%d", j))
 		}
+		wide = append(wide, widePart{block: "shape", key: "''", table: p.t("shape"), terms: shape, values: shape})
+		var four []string
 		for _, t := range fourthTerms(k + 1) {
-			name := fmt.Sprintf("q%d", fourthIndexOf(t))
-			parts = append(parts, row(lit("fourth"), "''", name, name, p.t("four")))
+			four = append(four, fmt.Sprintf("q%d", fourthIndexOf(t)))
 		}
+		wide = append(wide, widePart{block: "fourth", key: "''", table: p.t("four"), terms: four, values: four})
 	}
-	return strings.Join(parts, "\nUNION ALL ")
+	return parts, wide
 }
 
 // Script returns the SQL of a model as one script: the statements, with
@@ -464,10 +497,11 @@ func Script(s *Spec, src SQLSource, d Dialect, hc1 bool) (string, error) {
 		return "", errNoSource
 	}
 	pr := &printer{}
-	final, err := p.run(pr, nil)
+	st, err := p.run(pr, nil)
 	if err != nil {
 		return "", err
 	}
+	final := p.unpivot(st)
 	var b strings.Builder
 	fmt.Fprintf(&b, "-- priceiv: moment blocks of the model, computed where the data lives (%s dialect).\n", map[Dialect]string{Postgres: "postgres", ANSI: "ansi"}[d])
 	fmt.Fprintf(&b, "-- Source: %s. Columns in moment order: %s.\n", src.label(), strings.Join(p.names(), ", "))
