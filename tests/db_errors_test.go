@@ -252,6 +252,19 @@ func TestDBCommandLine(t *testing.T) {
 	if !strings.Contains(out, "moment blocks computed by PostgreSQL") {
 		t.Errorf("the result does not say where the sums were computed:\n%s", out)
 	}
+	// The cluster bootstrap works from the per-cluster blocks alone.
+	boot, errOut, err := run(append([]string{"estimate", "--db", pg.singleURL(), "--table", "small", "--bootstrap", "199", "--seed", "5"}, model...)...)
+	if err != nil {
+		t.Fatalf("estimate --db --bootstrap: %v\n%s", err, errOut)
+	}
+	var bj map[string]any
+	if err := json.Unmarshal([]byte(boot), &bj); err != nil {
+		t.Fatal(err)
+	}
+	els, _ := dig(bj, "elasticities").([]any)
+	if len(els) != 1 || dig(els[0], "bootstrap", "replicates") != 199.0 || dig(els[0], "bootstrap", "clusters") != 30.0 {
+		t.Errorf("bootstrap band from the database: %v", dig(bj, "elasticities"))
+	}
 	out2, errOut, err := run(append([]string{"estimate", "--moments", mfile}, model...)...)
 	if err != nil {
 		t.Fatalf("estimate --moments: %v\n%s", err, errOut)
