@@ -106,6 +106,9 @@ func TestMain(m *testing.M) {
 	}()
 	code := m.Run()
 	signal.Stop(sig)
+	if program.path != "" {
+		os.RemoveAll(filepath.Dir(program.path)) // the binary of the command-line tests
+	}
 	if err := stopSharedPG(); err != nil {
 		fmt.Fprintf(os.Stderr, "postgres harness: %v\n", err)
 		if code == 0 {
