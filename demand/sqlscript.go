@@ -111,7 +111,7 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (runState, e
 	}
 	var sd []float64
 	if !r.printing() {
-		v, err := r.values("SELECT " + p.sdList() + " FROM " + p.t("stat"))
+		v, err := r.values("SELECT " + p.absorbedList("d") + " FROM " + p.t("stat"))
 		if err != nil {
 			return st, err
 		}
@@ -151,7 +151,7 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (runState, e
 					return st, err
 				}
 				if !r.printing() {
-					v, err := r.values("SELECT " + p.changeList() + " FROM " + p.t(fmt.Sprintf("chg%d_%d", e, s)))
+					v, err := r.values("SELECT " + p.absorbedList("a") + " FROM " + p.t(fmt.Sprintf("chg%d_%d", e, s)))
 					if err != nil {
 						return st, err
 					}
@@ -286,24 +286,14 @@ func (p *sqlPlan) maxSweeps() int {
 	return 10000
 }
 
-// sdList selects the standard deviation of each absorbed column from the
-// stat table, in column order.
-func (p *sqlPlan) sdList() string {
+// absorbedList selects, in column order, the value named prefix<j> of
+// each absorbed column j: d<j> of the stat table (standard deviations),
+// a<j> of a change table.
+func (p *sqlPlan) absorbedList(prefix string) string {
 	var s []string
 	for j, c := range p.cols {
 		if c.src != "" {
-			s = append(s, fmt.Sprintf("CAST(d%d AS %s)", j, dbl))
-		}
-	}
-	return strings.Join(s, ", ")
-}
-
-// changeList selects each absorbed column's change, in column order.
-func (p *sqlPlan) changeList() string {
-	var s []string
-	for j, c := range p.cols {
-		if c.src != "" {
-			s = append(s, fmt.Sprintf("CAST(a%d AS %s)", j, dbl))
+			s = append(s, fmt.Sprintf("CAST(%s%d AS %s)", prefix, j, dbl))
 		}
 	}
 	return strings.Join(s, ", ")

@@ -383,9 +383,9 @@ func absorptionFromMoments(p *sqlPlan, m *momentSet, source string, d *Design, k
 		ab.Effects = append(ab.Effects, ivcore.EffectInfo{Name: p.fes[e].name, Levels: int(l)})
 	}
 	if len(p.fes) == 1 {
-		ab.Method = "within transformation in SQL (one GROUP BY)"
+		ab.Method = "within transformation in SQL, one GROUP BY"
 	} else {
-		ab.Method = "alternating projections in SQL (one GROUP BY per effect per sweep)"
+		ab.Method = "alternating projections in SQL, one GROUP BY per effect per sweep"
 		worst := 0.0
 		for j, c := range p.cols {
 			if c.src == "" {
