@@ -11,6 +11,8 @@ import (
 var (
 	// ErrUnknownColumn: a name was used that no column carries.
 	ErrUnknownColumn = errors.New("unknown column")
+	// ErrUnknownTable marks a database table that does not exist.
+	ErrUnknownTable = errors.New("unknown table")
 	// ErrNotNumeric: a cell that should hold a number holds text.
 	ErrNotNumeric = errors.New("cell is not a number")
 	// ErrFieldCount: a record has a different number of fields than the header.

@@ -74,6 +74,7 @@ func ReadMoments(r io.Reader, source string) ([]MomentRow, error) {
 		}
 	}
 	var out []MomentRow
+	seen := map[[3]string]int{}
 	for {
 		rec, err := cr.Read()
 		if err == io.EOF {
@@ -87,6 +88,12 @@ func ReadMoments(r io.Reader, source string) ([]MomentRow, error) {
 			return nil, &ParseError{File: source, Line: line, Column: 1, Err: ErrFieldCount, Hint: fmt.Sprintf("%d fields, expected 4 (block,key,term,value)", len(rec))}
 		}
 		m := MomentRow{Block: rec[0], Key: rec[1], Term: rec[2]}
+		id := [3]string{rec[0], rec[1], rec[2]}
+		if first, dup := seen[id]; dup {
+			return nil, &ParseError{File: source, Line: line, Column: 1, Err: ErrMoments, Text: strings.Join(rec[:3], ","),
+				Hint: fmt.Sprintf("the same block, key and term are on line %d: each sum comes once", first)}
+		}
+		seen[id] = line
 		v := strings.TrimSpace(rec[3])
 		switch {
 		case v == "" || strings.EqualFold(v, "null"):

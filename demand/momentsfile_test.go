@@ -71,7 +71,7 @@ func TestReadMomentsErrors(t *testing.T) {
 // once: fourthTerms lists C(K+4,4) tuples for K columns and a constant,
 // and their positions are 0, 1, … in order (ivcore.FourthIndex).
 func TestFourthTermsCoverIvcoreOrder(t *testing.T) {
-	for k := 1; k <= 11; k++ {
+	for k := 1; k <= maxSQLColumns; k++ {
 		terms := fourthTerms(k + 1)
 		if len(terms) != ivcore.FourthLen(k) {
 			t.Fatalf("K=%d: %d terms, ivcore takes %d", k, len(terms), ivcore.FourthLen(k))
@@ -96,7 +96,7 @@ func TestScript(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	for _, want := range []string{`FROM "retail"."sales"`, "CREATE TABLE piv_rows AS", "piv_a0_50", "piv_lab0_4", "DROP TABLE IF EXISTS piv_rows;", `CAST("product" AS VARCHAR(200)) || '|' || CAST("store" AS VARCHAR(200)) AS k0`} {
+	for _, want := range []string{`FROM "retail"."sales"`, "CREATE TABLE piv_rows AS", "piv_a0_50", "piv_la0_1_4", "DROP TABLE IF EXISTS piv_rows;", `CAST("product" AS VARCHAR(1000)) || '|' || CAST("store" AS VARCHAR(1000)) AS k0`} {
 		if !strings.Contains(ansi, want) {
 			t.Errorf("ansi script lacks %q", want)
 		}
@@ -133,7 +133,7 @@ func TestScript(t *testing.T) {
 	}{
 		{Spec{Quantity: "q", Price: "p", Shifters: List{"z"}, Derive: List{"x=log(q)"}}, false, "--query"},
 		{Spec{Quantity: "q", Price: "p", Shifters: List{"z"}, Cross: true, Product: "product"}, false, "--by"},
-		{Spec{Outcome: "y", Endogenous: List{"x"}, Exogenous: List{"a", "b", "c", "d", "e", "f", "g", "h"}, Instruments: List{"z"}}, true, "--vcov cluster"},
+		{Spec{Outcome: "y", Endogenous: List{"x"}, Exogenous: List{"a", "b", "c", "d", "e", "f", "g"}, Instruments: List{"z"}}, true, "--vcov cluster"},
 	} {
 		_, err := Script(&c.spec, SQLSource{Table: "t"}, ANSI, c.hc1)
 		if !errors.Is(err, ErrSpec) || !strings.Contains(err.Error(), c.says) {
@@ -142,5 +142,14 @@ func TestScript(t *testing.T) {
 	}
 	if _, err := Script(&Spec{Quantity: "q", Price: "p", Shifters: List{"z"}}, SQLSource{}, ANSI, false); !errors.Is(err, ErrSpec) {
 		t.Errorf("no source: %v", err)
+	}
+}
+
+// A sum given twice is refused with both lines.
+func TestReadMomentsDuplicate(t *testing.T) {
+	_, err := ReadMoments(strings.NewReader("block,key,term,value\ncluster:0,S1,n,3\ncluster:0,S2,n,4\ncluster:0,S1,n,5\n"), "m.csv")
+	var pe *ParseError
+	if !errors.As(err, &pe) || pe.Line != 4 || !strings.Contains(err.Error(), "line 2") {
+		t.Errorf("duplicate sum: %v", err)
 	}
 }

@@ -150,12 +150,16 @@ func (c countedConn) Write(b []byte) (int, error) {
 	return n, err
 }
 
-// connect opens one connection (temporary tables live in its session).
+// connect opens one connection (temporary tables live as long as it).
 // Errors name the host and port and never the password.
 func connect(ctx context.Context, url string) (*pgx.Conn, *byteCounter, string, error) {
 	cfg, err := pgx.ParseConfig(url)
 	if err != nil {
-		return nil, nil, "", fmt.Errorf("--db: the address is not a PostgreSQL connection URL (postgres://user@host:port/database) or key=value string; the standard PG* environment variables are used when --db is empty")
+		reason := ""
+		if inner := errors.Unwrap(err); inner != nil && (url == "" || !strings.Contains(inner.Error(), url)) && !containsPassword(inner.Error(), url) {
+			reason = " (" + inner.Error() + ")"
+		}
+		return nil, nil, "", fmt.Errorf("--db: the address is not a PostgreSQL connection URL (postgres://user@host:port/database) or key=value string%s; the standard PG* environment variables are used when --db is empty", reason)
 	}
 	if cfg.ConnectTimeout == 0 {
 		cfg.ConnectTimeout = 15 * time.Second
@@ -252,13 +256,15 @@ func sourceError(ctx context.Context, conn *pgx.Conn, p *sqlPlan, err error) err
 			}
 			rows.Close()
 		}
-		msg := fmt.Sprintf("%v: the database has no table %q", ErrUnknownColumn, p.source.Table)
+		msg := fmt.Sprintf("the database has no table %q", p.source.Table)
 		if c := closeNames(p.source.Table, tables, 3); len(c) > 0 {
 			msg += fmt.Sprintf("; did you mean %s?", strings.Join(quoteAll(c), " or "))
+		} else if len(tables) == 1 {
+			msg += " (it has 1 table)"
 		} else if len(tables) > 0 {
 			msg += fmt.Sprintf(" (it has %d tables)", len(tables))
 		}
-		return errors.New(msg + ": check --table (schema.table for another schema)")
+		return fmt.Errorf("%w: %s: check --table (schema.table for another schema)", ErrUnknownTable, msg)
 	}
 	if p.source.Query != "" {
 		return fmt.Errorf("--query failed in the database: %s (SQLSTATE %s)", pe.Message, pe.Code)
@@ -431,7 +437,7 @@ func EstimateByProductDB(ctx context.Context, s *Spec, opt DBOptions) (*ProductT
 		return nil, nil, err
 	}
 	prod := quoteIdent(s.Product)
-	text := "CAST(" + prod + " AS VARCHAR(200))"
+	text := "CAST(" + prod + " AS VARCHAR(1000))"
 	var levels []string
 	rows, err := conn.Query(ctx, "SELECT DISTINCT "+text+" FROM "+p.from+" WHERE "+prod+" IS NOT NULL ORDER BY 1")
 	if err == nil {
@@ -476,4 +482,25 @@ func EstimateByProductDB(ctx context.Context, s *Spec, opt DBOptions) (*ProductT
 		return nil, nil, err
 	}
 	return t, stats, nil
+}
+
+// containsPassword reports whether text holds the password of a
+// connection URL or key=value string (any text after "password=" or
+// between "user:" and "@").
+func containsPassword(text, url string) bool {
+	var pw string
+	if i := strings.Index(url, "password="); i >= 0 {
+		pw = url[i+len("password="):]
+		if j := strings.IndexAny(pw, " &"); j >= 0 {
+			pw = pw[:j]
+		}
+	} else if i := strings.Index(url, "://"); i >= 0 {
+		rest := url[i+3:]
+		if at := strings.LastIndex(rest, "@"); at >= 0 {
+			if c := strings.Index(rest[:at], ":"); c >= 0 {
+				pw = rest[c+1 : at]
+			}
+		}
+	}
+	return pw != "" && strings.Contains(text, pw)
 }

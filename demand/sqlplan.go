@@ -96,8 +96,13 @@ const prefix = "piv_"
 
 // maxSQLColumns bounds the model columns of the SQL path when HC1 is
 // asked for: the fourth-order sums of K columns and a constant fill
-// C(K+4,4) columns of one table (1365 at K = 11; PostgreSQL allows 1664).
-const maxSQLColumns = 11
+// C(K+4,4) columns of one table row (1001 at K = 10, 8 bytes each;
+// PostgreSQL rows hold at most about 8160 bytes).
+const maxSQLColumns = 10
+
+// maxBlockColumns bounds the model columns of the SQL path: a block row
+// holds K(K+1)/2 + K + 5 sums (950 at K = 40).
+const maxBlockColumns = 40
 
 // newSQLPlan lays out the SQL of spec over the source. hc1 adds the pass
 // of fourth-order sums that HC1 statistics need.
@@ -204,6 +209,9 @@ func newSQLPlan(s *Spec, src SQLSource, d Dialect, hc1 bool) (*sqlPlan, error) {
 			}
 		}
 	}
+	if len(p.cols) > maxBlockColumns {
+		return nil, fmt.Errorf("%w: the SQL path sums the cross-products of the %d model columns in one table row, more than the %d it allows: use fewer controls, or absorb groups of them as fixed effects", ErrSpec, len(p.cols), maxBlockColumns)
+	}
 	if hc1 && len(p.cols) > maxSQLColumns {
 		return nil, fmt.Errorf("%w: HC1 from a database sums fourth-order products of the %d model columns, more than the %d one table can hold: use --vcov cluster (with --cluster) or --vcov iid, or fewer controls", ErrSpec, len(p.cols), maxSQLColumns)
 	}
@@ -279,7 +287,7 @@ func (p *sqlPlan) create(name, query string) string {
 // drop returns DROP TABLE name.
 func (p *sqlPlan) drop(name string) string { return "DROP TABLE IF EXISTS " + name }
 
-// prelude returns the session settings (PostgreSQL).
+// prelude returns the connection's settings (PostgreSQL).
 func (p *sqlPlan) prelude() []string {
 	if p.dialect != Postgres {
 		return nil
@@ -288,6 +296,8 @@ func (p *sqlPlan) prelude() []string {
 		"SET enable_partitionwise_aggregate = on",
 		"SET enable_partitionwise_join = on",
 		"SET temp_buffers = '256MB'",
+		// Literals are written with doubled quotes only.
+		"SET standard_conforming_strings = on",
 		// Compiling the wide aggregates (up to 1365 sums) costs seconds
 		// and saves nothing on sums of a few columns.
 		"SET jit = off",
@@ -314,18 +324,39 @@ func keyExpr(k sqlKey) string {
 	}
 	var s []string
 	for _, part := range k.parts {
-		s = append(s, "CAST("+quoteIdent(part)+" AS VARCHAR(200))")
+		s = append(s, "CAST("+quoteIdent(part)+" AS VARCHAR(1000))")
 	}
 	return strings.Join(s, " || '|' || ")
 }
 
-// keep is the WHERE condition of used rows: every used column present,
-// columns under a log positive.
+// numericMissing reports whether model column name counts as missing
+// when it is not a finite number, as well as when it is NULL.
+func (p *sqlPlan) numericMissing(name string) bool {
+	for _, c := range p.cols {
+		if c.src == name {
+			return true
+		}
+	}
+	return false
+}
+
+// finite is true for a finite number: NaN - NaN and ∞ - ∞ are NaN, which
+// equals nothing (IEEE engines) or sorts above everything (PostgreSQL).
+func finite(col string) string {
+	x := "CAST(" + quoteIdent(col) + " AS " + dbl + ")"
+	return x + " - " + x + " = 0"
+}
+
+// keep is the WHERE condition of used rows: every used column present
+// (numbers finite), columns under a log positive.
 func (p *sqlPlan) keep() string {
 	var c []string
 	for _, k := range p.miss {
 		for _, part := range k.parts {
 			c = append(c, quoteIdent(part)+" IS NOT NULL")
+			if p.numericMissing(part) {
+				c = append(c, finite(part))
+			}
 		}
 	}
 	for _, j := range p.logs {
@@ -343,6 +374,9 @@ func (p *sqlPlan) profile() string {
 		var conds []string
 		for _, part := range k.parts {
 			conds = append(conds, quoteIdent(part)+" IS NULL")
+			if p.numericMissing(part) {
+				conds = append(conds, "NOT ("+finite(part)+")")
+			}
 		}
 		cs = append(cs, fmt.Sprintf("WHEN %s THEN %d", strings.Join(conds, " OR "), i+1))
 	}
@@ -538,27 +572,63 @@ func (p *sqlPlan) change(e, s int) string {
 	return p.create(p.t(fmt.Sprintf("chg%d_%d", e, s)), q)
 }
 
-// edges writes the distinct pairs of levels of the first two effects, and
-// labels writes the first labelling of the first effect's levels (the
-// smallest second-effect level each meets).
-func (p *sqlPlan) edges() []string {
+// pairs lists the pairs of effects whose connected components the plan
+// labels: the first two (their redundant levels), and, with three or more
+// effects and clusters, every pair (the rank of the effects nested in a
+// cluster is counted from the first two nested ones, as Build counts it).
+func (p *sqlPlan) pairs() [][2]int {
+	switch {
+	case len(p.fes) < 2:
+		return nil
+	case len(p.fes) == 2 || len(p.cls) == 0:
+		return [][2]int{{0, 1}}
+	}
+	var out [][2]int
+	for a := range p.fes {
+		for b := a + 1; b < len(p.fes); b++ {
+			out = append(out, [2]int{a, b})
+		}
+	}
+	return out
+}
+
+// pairName tags the tables of a pair of effects.
+func pairName(pr [2]int) string { return fmt.Sprintf("%d_%d", pr[0], pr[1]) }
+
+// labelTable names the labels of the first effect of pair pr at step t.
+func (p *sqlPlan) labelTable(pr [2]int, t int) string {
+	return p.t(fmt.Sprintf("la%s_%d", pairName(pr), t))
+}
+
+// movedTable names the count of labels that moved at step t.
+func (p *sqlPlan) movedTable(pr [2]int, t int) string {
+	return p.t(fmt.Sprintf("mv%s_%d", pairName(pr), t))
+}
+
+// edges writes the distinct pairs of levels of the effects of pr, and the
+// first labelling of the first effect's levels (the smallest level of the
+// second effect each meets).
+func (p *sqlPlan) edges(pr [2]int) []string {
+	a, b := pr[0], pr[1]
+	e := p.t("edge" + pairName(pr))
 	return []string{
-		p.create(p.t("edge"), "SELECT DISTINCT k0, k1 FROM "+p.t("rows")),
-		p.create(p.t("lab0_0"), "SELECT k0, MIN(k1) AS lab FROM "+p.t("edge")+" GROUP BY k0"),
+		p.create(e, fmt.Sprintf("SELECT DISTINCT k%d AS ka, k%d AS kb FROM %s", a, b, p.t("rows"))),
+		p.create(p.labelTable(pr, 0), "SELECT ka, MIN(kb) AS lab FROM "+e+" GROUP BY ka"),
 	}
 }
 
-// propagate writes step t of label propagation over the edges: each
-// second-effect level takes the smallest label of its first-effect
+// propagate writes step t of label propagation over the edges of pr: each
+// level of the second effect takes the smallest label of its first-effect
 // levels, then each first-effect level the smallest of its second-effect
 // levels'. At the fixed point each connected component carries one label
 // (its smallest second-effect level).
-func (p *sqlPlan) propagate(t int) []string {
-	e := p.t("edge")
+func (p *sqlPlan) propagate(pr [2]int, t int) []string {
+	e := p.t("edge" + pairName(pr))
+	lb := p.t(fmt.Sprintf("lb%s_%d", pairName(pr), t))
 	return []string{
-		p.create(p.t(fmt.Sprintf("lab1_%d", t)), fmt.Sprintf("SELECT e.k1, MIN(l.lab) AS lab FROM %s e JOIN %s l ON e.k0 = l.k0 GROUP BY e.k1", e, p.t(fmt.Sprintf("lab0_%d", t-1)))),
-		p.create(p.t(fmt.Sprintf("lab0_%d", t)), fmt.Sprintf("SELECT e.k0, MIN(l.lab) AS lab FROM %s e JOIN %s l ON e.k1 = l.k1 GROUP BY e.k0", e, p.t(fmt.Sprintf("lab1_%d", t)))),
-		p.create(p.t(fmt.Sprintf("moved_%d", t)), fmt.Sprintf("SELECT COUNT(*) AS n FROM %s n JOIN %s o ON n.k0 = o.k0 WHERE n.lab <> o.lab", p.t(fmt.Sprintf("lab0_%d", t)), p.t(fmt.Sprintf("lab0_%d", t-1)))),
+		p.create(lb, fmt.Sprintf("SELECT e.kb, MIN(l.lab) AS lab FROM %s e JOIN %s l ON e.ka = l.ka GROUP BY e.kb", e, p.labelTable(pr, t-1))),
+		p.create(p.labelTable(pr, t), fmt.Sprintf("SELECT e.ka, MIN(l.lab) AS lab FROM %s e JOIN %s l ON e.kb = l.kb GROUP BY e.ka", e, lb)),
+		p.create(p.movedTable(pr, t), fmt.Sprintf("SELECT COUNT(*) AS n FROM %s n JOIN %s o ON n.ka = o.ka WHERE n.lab <> o.lab", p.labelTable(pr, t), p.labelTable(pr, t-1))),
 	}
 }
 

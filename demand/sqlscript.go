@@ -3,6 +3,7 @@ package demand
 import (
 	"errors"
 	"fmt"
+	"math"
 	"strings"
 )
 
@@ -134,6 +135,8 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (runState, e
 		if r.printing() && p.spec.MaxSweeps == 0 {
 			limit = printSweeps
 		}
+		// The second sweep is the first whose change can be measured.
+		limit = max(limit, 2)
 		for s := 1; s <= limit; s++ {
 			for e := range p.fes {
 				if err := ex(p.sweep(e, s)); err != nil {
@@ -160,8 +163,8 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (runState, e
 			}
 			worst = st.worst()
 			p.dropSweep(ex, s-2)
-			if !r.printing() && worst <= p.tol() {
-				break
+			if !r.printing() && (worst <= p.tol() || math.IsNaN(worst)) {
+				break // converged, or a value that is not a number: reported when read
 			}
 			if !r.printing() && s < limit {
 				for e := range p.fes {
@@ -172,26 +175,29 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (runState, e
 				st.change = nil
 			}
 		}
-		// Connected components of the first two effects.
-		for _, s := range p.edges() {
+	}
+	// Connected components of pairs of effects.
+	st.labels = map[[2]int]int{}
+	for _, pr := range p.pairs() {
+		for _, s := range p.edges(pr) {
 			if err := ex(s); err != nil {
 				return st, err
 			}
 		}
 		for t := 1; ; t++ {
-			for _, s := range p.propagate(t) {
+			for _, s := range p.propagate(pr, t) {
 				if err := ex(s); err != nil {
 					return st, err
 				}
 			}
-			st.labels = t
+			st.labels[pr] = t
 			if r.printing() {
 				if t == printLabelSteps {
 					break
 				}
 				continue
 			}
-			v, err := r.values("SELECT CAST(n AS DOUBLE PRECISION) FROM " + p.t(fmt.Sprintf("moved_%d", t)))
+			v, err := r.values("SELECT CAST(n AS DOUBLE PRECISION) FROM " + p.movedTable(pr, t))
 			if err != nil {
 				return st, err
 			}
@@ -223,8 +229,8 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (runState, e
 
 // runState records how a run's loops ended, for the final query.
 type runState struct {
-	sweeps int // last sweep of the absorption
-	labels int // last step of label propagation
+	sweeps int            // last sweep of the absorption
+	labels map[[2]int]int // last step of label propagation, per pair of effects
 	change [][]float64
 }
 
@@ -336,7 +342,7 @@ func row(block, key, term, value, from string) string {
 func textKey(cols []string) string {
 	var s []string
 	for _, c := range cols {
-		s = append(s, "CAST("+c+" AS VARCHAR(200))")
+		s = append(s, "CAST("+c+" AS VARCHAR(1000))")
 	}
 	return strings.Join(s, " || '|' || ")
 }
@@ -449,9 +455,12 @@ func (p *sqlPlan) final(st runState) ([]string, []widePart) {
 					}
 				}
 			}
+		}
+		for _, pr := range p.pairs() {
+			t := st.labels[pr]
 			parts = append(parts,
-				row(lit("absorb"), "''", "components", "COUNT(DISTINCT lab)", p.t(fmt.Sprintf("lab0_%d", st.labels))),
-				row(lit("absorb"), "''", "moved", "n", p.t(fmt.Sprintf("moved_%d", st.labels))))
+				row(lit("absorb"), "''", "components"+pairName(pr), "COUNT(DISTINCT lab)", p.labelTable(pr, t)),
+				row(lit("absorb"), "''", "moved"+pairName(pr), "n", p.movedTable(pr, t)))
 		}
 		for d := range p.dims() {
 			for e := range p.fes {
@@ -495,7 +504,7 @@ func Script(s *Spec, src SQLSource, d Dialect, hc1 bool) (string, error) {
 	var b strings.Builder
 	fmt.Fprintf(&b, "-- priceiv: moment blocks of the model, computed where the data lives (%s dialect).\n", map[Dialect]string{Postgres: "postgres", ANSI: "ansi"}[d])
 	fmt.Fprintf(&b, "-- Source: %s. Columns in moment order: %s.\n", src.label(), strings.Join(p.names(), ", "))
-	b.WriteString("-- Run the statements in order in one session; save the result of the final SELECT\n")
+	b.WriteString("-- Run the statements in order on one connection; save the result of the final SELECT\n")
 	b.WriteString("-- as CSV with a header (block,key,term,value) and give it to: priceiv estimate --moments FILE\n")
 	b.WriteString("-- with the same model options. Only sums leave the engine, no rows.\n")
 	if len(p.fes) >= 2 {
@@ -530,7 +539,7 @@ func (pr *printer) values(string) ([]float64, error) { return nil, nil }
 func (pr *printer) printing() bool                   { return true }
 func (pr *printer) sweeps(p *sqlPlan) int {
 	if p.spec.MaxSweeps > 0 {
-		return p.spec.MaxSweeps
+		return max(p.spec.MaxSweeps, 2)
 	}
 	return printSweeps
 }

@@ -45,7 +45,7 @@ func newMomentSet(rows []MomentRow) (*momentSet, error) {
 	}
 	for _, r := range rows {
 		if r.Block == "model" {
-			if r.Value < 0 || r.Value > 1e6 || r.Value != math.Trunc(r.Value) {
+			if r.Value < 0 || r.Value >= float64(len(rows)) || r.Value != math.Trunc(r.Value) {
 				return nil, fmt.Errorf("%w: model row %q has position %v", ErrMoments, r.Key, r.Value)
 			}
 			switch r.Term {
@@ -70,6 +70,9 @@ func newMomentSet(rows []MomentRow) (*momentSet, error) {
 			k = map[string]float64{}
 			b[r.Key] = k
 		}
+		if _, dup := k[r.Term]; dup {
+			return nil, fmt.Errorf("%w: block %q key %q term %q appears twice: each sum comes once (two cluster keys that read the same as text would also do this)", ErrMoments, r.Block, r.Key, r.Term)
+		}
 		k[r.Term] = r.Value
 	}
 	return m, nil
@@ -80,7 +83,7 @@ func newMomentSet(rows []MomentRow) (*momentSet, error) {
 func (m *momentSet) get(block, key, term string) (float64, error) {
 	v, ok := m.blocks[block][key][term]
 	if ok && math.IsNaN(v) {
-		return 0, fmt.Errorf("%w: block %q key %q term %q is empty (NULL)", ErrMoments, block, key, term)
+		return 0, fmt.Errorf("%w: block %q key %q term %q is empty (NULL) or not a number", ErrMoments, block, key, term)
 	}
 	if !ok {
 		where := fmt.Sprintf("block %q", block)
@@ -104,7 +107,7 @@ func designFromMoments(p *sqlPlan, rows []MomentRow, source string) (*Design, er
 	s := p.spec
 	remake := "print the SQL again with this model's options (priceiv sql …) and rerun it"
 	if want := p.names(); !slices.Equal(m.columns, want) {
-		return nil, fmt.Errorf("%w: %s holds sums of the columns [%s], but this model uses [%s]: %s", ErrMoments, source, strings.Join(m.columns, ", "), strings.Join(want, ", "), remake)
+		return nil, fmt.Errorf("%w: %s holds sums of %s, but this model uses %s: %s", ErrMoments, source, listDiff(m.columns, want), listDiff(want, m.columns), remake)
 	}
 	if m.form != p.form {
 		return nil, fmt.Errorf("%w: %s was made for the %q form, this model is %q: %s", ErrMoments, source, m.form, p.form, remake)
@@ -309,7 +312,11 @@ func profileDrops(p *sqlPlan, m *momentSet, source string, d *Design) (int, erro
 	}
 	sort.Ints(keys)
 	for _, i := range keys {
-		n := int(prof[strconv.Itoa(i)]["n"])
+		nv, ok := prof[strconv.Itoa(i)]["n"]
+		if !ok || math.IsNaN(nv) {
+			return 0, fmt.Errorf("%w: %s: profile key %d has no row count (term \"n\")", ErrMoments, source, i)
+		}
+		n := int(nv)
 		if i == 0 {
 			kept = n
 			continue
@@ -351,6 +358,9 @@ func absorptionFromMoments(p *sqlPlan, m *momentSet, source string, d *Design, k
 	if err != nil {
 		return nil, nil, err
 	}
+	if int(n) != d.N {
+		return nil, nil, fmt.Errorf("%w: %s: the blocks hold %d rows but %d rows were absorbed: the result is incomplete or mixes two runs", ErrMoments, source, d.N, int(n))
+	}
 	if single := kept - int(n); single > 0 {
 		d.Dropped = append(d.Dropped, Drop{Reason: "singleton in a fixed effect", Rows: single})
 	}
@@ -386,7 +396,7 @@ func absorptionFromMoments(p *sqlPlan, m *momentSet, source string, d *Design, k
 		ab.Method = "within transformation in SQL, one GROUP BY"
 	} else {
 		ab.Method = "alternating projections in SQL, one GROUP BY per effect per sweep"
-		worst := 0.0
+		worst, worstCol := 0.0, ""
 		for j, c := range p.cols {
 			if c.src == "" {
 				continue
@@ -406,24 +416,57 @@ func absorptionFromMoments(p *sqlPlan, m *momentSet, source string, d *Design, k
 				}
 				sum += v / sd
 			}
-			worst = math.Max(worst, sum)
+			if sum > worst || math.IsNaN(sum) {
+				worst, worstCol = sum, c.name
+			}
 		}
 		ab.MaxChange = worst
-		if worst > ab.Tol {
-			return nil, nil, fmt.Errorf("absorbing fixed effects %s in SQL: %w", strings.Join(p.spec.FE, ", "), &ivcore.NotConvergedError{Iterations: ab.Iterations, MaxChange: worst, Tol: ab.Tol})
+		if math.IsNaN(worst) {
+			return nil, nil, fmt.Errorf("%w: %s: absorbing %s in SQL gave values that are not numbers in column %q: look for NaN or infinite values in it", ErrMoments, source, strings.Join(p.spec.FE, ", "), worstCol)
 		}
-		moved, err := get("absorb", "", "moved")
+		if worst > ab.Tol {
+			fix := fmt.Sprintf("raise --max-sweeps (it was %d)", ab.Iterations)
+			if p.from == "" {
+				fix = fmt.Sprintf("print the SQL again with a larger --max-sweeps (the script wrote %d sweeps) and rerun it", ab.Iterations)
+			}
+			return nil, nil, fmt.Errorf("absorbing fixed effects %s in SQL did not converge in %d sweeps: the last sweep still moved %q by %.3g of its standard deviation, above the tolerance %.3g; %s, loosen --tolerance, or look for effects with many levels joined by few rows",
+				strings.Join(p.spec.FE, ", "), ab.Iterations, worstCol, worst, ab.Tol, fix)
+		}
+	}
+	// Connected components of pairs of effects.
+	comps := map[[2]int]int{}
+	for _, pr := range p.pairs() {
+		moved, err := get("absorb", "", "moved"+pairName(pr))
 		if err != nil {
 			return nil, nil, err
 		}
 		if moved > 0 {
-			return nil, nil, fmt.Errorf("%w: %s: the labelling of connected components had not settled (%d labels still moving): repeat its three statements until none move", ErrMoments, source, int(moved))
+			return nil, nil, fmt.Errorf("%w: %s: the labelling of connected components of %s and %s had not settled (%d labels still moving): repeat its three statements until none move", ErrMoments, source, p.fes[pr[0]].name, p.fes[pr[1]].name, int(moved))
 		}
-		comp, err := get("absorb", "", "components")
+		c, err := get("absorb", "", "components"+pairName(pr))
 		if err != nil {
 			return nil, nil, err
 		}
-		ab.Effects[1].Redundant = int(comp)
+		comps[pr] = int(c)
+	}
+	// Redundant levels as feDoF counts them (ivcore/dof.go) for the
+	// effects listed.
+	rank := func(list []int) int {
+		r := 0
+		for k, e := range list {
+			l := ab.Effects[e].Levels
+			switch {
+			case k == 1:
+				l -= comps[[2]int{list[0], e}]
+			case k >= 2 && l > 0:
+				l--
+			}
+			r += l
+		}
+		return r
+	}
+	if len(p.fes) >= 2 {
+		ab.Effects[1].Redundant = comps[[2]int{0, 1}]
 		for e := 2; e < len(ab.Effects); e++ {
 			if ab.Effects[e].Levels > 0 {
 				ab.Effects[e].Redundant = 1
@@ -446,20 +489,9 @@ func absorptionFromMoments(p *sqlPlan, m *momentSet, source string, d *Design, k
 				nested = append(nested, e)
 			}
 		}
-		switch {
-		case len(nested) == 0:
-		case len(nested) == len(p.fes):
-			nestedDoF[dd] = ab.DoF
-		case len(nested) == 1:
-			nestedDoF[dd] = ab.Effects[nested[0]].Levels
-		default:
-			// The rank of several nested effects' dummies is at most
-			// their levels less one for each effect after the first.
-			for _, e := range nested {
-				nestedDoF[dd] += ab.Effects[e].Levels
-			}
-			nestedDoF[dd] -= len(nested) - 1
-		}
+		// The rank of the nested effects' dummies alone, as Build
+		// counts it.
+		nestedDoF[dd] = rank(nested)
 	}
 	return ab, nestedDoF, nil
 }
@@ -480,4 +512,18 @@ func dropSummaryOr(d []Drop, empty string) string {
 		return empty
 	}
 	return dropSummary(d)
+}
+
+// listDiff shows a list of column names, or, when it is long, its length
+// and its first entry that differs from other.
+func listDiff(list, other []string) string {
+	if len(list) <= 20 {
+		return "the columns [" + strings.Join(list, ", ") + "]"
+	}
+	for i, x := range list {
+		if i >= len(other) || other[i] != x {
+			return fmt.Sprintf("%d columns (position %d: %q)", len(list), i, x)
+		}
+	}
+	return fmt.Sprintf("%d columns", len(list))
 }

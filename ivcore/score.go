@@ -13,6 +13,12 @@ import (
 // the moments were supplied without them.
 var ErrNoRows = errors.New("ivcore: this statistic needs the row data (HC1 needs one pass over the rows), but only moment sums are available")
 
+// ErrPrecision is returned when an HC1 statistic of moments without rows
+// would lose more than about 1e-10 of its value to cancellation: a
+// residual is tiny against the columns it combines, and the fourth-order
+// sums cannot resolve it.
+var ErrPrecision = errors.New("ivcore: a residual is too small against its columns for the fourth-order sums to give its HC1 statistic to 1e-10 (the fit is nearly exact); use the cluster-robust or iid covariance, or estimate from the rows")
+
 // ScoreCov returns the outer-product sum of unit scores
 //
 //	S = Σ_u s_u s_uᵀ,   s_u = [W_uᵀ A_u r_1; …; W_uᵀ A_u r_m]
@@ -165,8 +171,12 @@ func (m *Moments) rowScoreSum(w []combo, r [][]float64) ([]float64, error) {
 	d := len(w) * len(r)
 	out := make([]float64, d*d)
 	if supplied {
-		// No rows to fall back on: the contraction is the statistic.
+		// No rows to fall back on: the contraction is the statistic,
+		// unless it would lose the residual's digits.
 		wa, ra := hc.augment(w, r)
+		if cancels(src, r, ra) {
+			return nil, ErrPrecision
+		}
 		fourthScoreCov(out, hc.m4, len(src.Names)+1, wa, ra)
 		return out, nil
 	}

@@ -12,7 +12,7 @@ import (
 // loaded into one PostgreSQL server of the harness and into the sharded
 // set (two shard servers behind a coordinator, partitioned by store):
 //
-//	go test -run XXX -bench DBMoments -benchtime 3x ./tests/
+//	go test -run XXX -bench DBMoments -benchtime 2x ./tests/
 //
 // Each reports rows/s (rows of the table per second of the whole run:
 // connection, profile, absorption and blocks) and the bytes received and

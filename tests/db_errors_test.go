@@ -69,7 +69,7 @@ func TestDBBadInput(t *testing.T) {
 	})
 	t.Run("unknown table", func(t *testing.T) {
 		err := dbErr(t, url, smallSpec(), demand.SQLSource{Table: "smal"})
-		if !strings.Contains(err.Error(), `no table "smal"`) || !strings.Contains(err.Error(), `"small"`) {
+		if !errors.Is(err, demand.ErrUnknownTable) || !strings.Contains(err.Error(), `no table "smal"`) || !strings.Contains(err.Error(), `"small"`) {
 			t.Errorf("error %q does not name the table and the close name small", err)
 		}
 	})
@@ -313,6 +313,10 @@ func TestDBCommandLine(t *testing.T) {
 		}
 	}
 
+	if _, errOut, err := run(append([]string{"estimate", csvPath, "--save-moments", filepath.Join(dir, "x.csv")}, model...)...); err == nil || !strings.Contains(errOut, "--save-moments writes the sums a database returned") {
+		t.Errorf("--save-moments with a file: %v\n%s", err, errOut)
+	}
+
 	ports, _ := freePorts(1)
 	_, errOut, err = run(append([]string{"estimate", "--db", fmt.Sprintf("postgres://%s:%s@127.0.0.1:%d/x?connect_timeout=5", pgUser, pgPassword, ports[0]), "--table", "small"}, model...)...)
 	if err == nil || !strings.Contains(errOut, fmt.Sprintf("port %d", ports[0])) {
@@ -401,5 +405,86 @@ func TestDBCommandLineStockWatson(t *testing.T) {
 	}
 	if res.N != 48 || found != 2 {
 		t.Errorf("n = %d, coefficients %v", res.N, res.Coeffs)
+	}
+}
+
+// TestDBNotANumberAndNesting checks two harder cases against the file
+// path on the small generated panel: a price that is NaN in the database
+// (PostgreSQL keeps it as a value, not a NULL) is dropped and counted as
+// missing, as an unusable cell of a file is; and with three effects of
+// which two (store, product×store) are nested in the store clusters, the
+// small-sample factor counts the rank of the nested effects' dummies as
+// Build does, so the cluster-robust standard errors agree to 1e-10
+// relative (common practice for the same computation in another order).
+// --max-sweeps 1 is taken as two sweeps (the second measures the change).
+func TestDBNotANumberAndNesting(t *testing.T) {
+	pg := loadSmall(t)
+	s := smallSpec()
+	s.FE = []string{"store", "week"}
+	q := "SELECT product, store, week, units, CASE WHEN week = 4 AND store = 7 THEN CAST('NaN' AS double precision) ELSE price END AS price, temp, bean, freight FROM small"
+	d, _, err := demand.BuildFromDB(context.Background(), s, demand.DBOptions{URL: pg.singleURL(), Source: demand.SQLSource{Query: q}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ref, _, _ := demand.BuildFromDB(context.Background(), s, demand.DBOptions{URL: pg.singleURL(), Source: demand.SQLSource{Table: "small"}})
+	var gotPrice, refPrice int
+	for _, dr := range d.Dropped {
+		if dr.Column == "price" {
+			gotPrice = dr.Rows
+		}
+	}
+	for _, dr := range ref.Dropped {
+		if dr.Column == "price" {
+			refPrice = dr.Rows
+		}
+	}
+	// Week 4 of store 7 has 2 rows (one per product), both made NaN here
+	// unless already missing.
+	if gotPrice < refPrice+1 || gotPrice > refPrice+2 || d.N != ref.N-(gotPrice-refPrice) {
+		t.Errorf("NaN prices: dropped %v (n %d); without them %v (n %d)", d.Dropped, d.N, ref.Dropped, ref.N)
+	}
+
+	dir := t.TempDir()
+	csvPath := filepath.Join(dir, "small.csv")
+	smallPanel().writeCSV(t, csvPath)
+	raw, err := demand.ReadPanelFile(csvPath, demand.ReadOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	three := smallSpec()
+	three.FE = []string{"store", "week", "product*store"}
+	three.Tolerance = 1e-13
+	fileD, err := demand.Build(raw, three, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	fileFit, _, err := fileD.Fit()
+	if err != nil {
+		t.Fatal(err)
+	}
+	dbD, _, err := demand.BuildFromDB(context.Background(), three, demand.DBOptions{URL: pg.coordURL(), Source: demand.SQLSource{Table: "small"}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	dbFit, _, err := dbD.Fit()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if fileFit.Vcov.SmallSample != dbFit.Vcov.SmallSample || fileD.Absorption.DoF != dbD.Absorption.DoF {
+		t.Errorf("small-sample factor: file %q (absorbed %d), database %q (absorbed %d)", fileFit.Vcov.SmallSample, fileD.Absorption.DoF, dbFit.Vcov.SmallSample, dbD.Absorption.DoF)
+	}
+	for j := range fileFit.Coef {
+		if e := math.Abs(fileFit.SE(j)-dbFit.SE(j)) / fileFit.SE(j); e > 1e-10 {
+			t.Errorf("s.e. %d: file %.15g, database %.15g", j, fileFit.SE(j), dbFit.SE(j))
+		}
+	}
+
+	one := smallSpec()
+	one.FE = []string{"store", "week"}
+	one.MaxSweeps = 1
+	one.Tolerance = 1e-3
+	_, _, err = demand.BuildFromDB(context.Background(), one, demand.DBOptions{URL: pg.singleURL(), Source: demand.SQLSource{Table: "small"}})
+	if err == nil || !strings.Contains(err.Error(), "did not converge in 2 sweeps") {
+		t.Errorf("--max-sweeps 1 on a panel needing more: %v; want the not-converged error after 2 sweeps", err)
 	}
 }

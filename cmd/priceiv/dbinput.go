@@ -30,6 +30,20 @@ func (f *dbFlags) register(fs *pflag.FlagSet) {
 	fs.StringVar(&f.save, "save-moments", "", "with --db: also write the sums the database returned as a moments file")
 }
 
+// checkSave refuses --save-moments where nothing is saved: a panel file,
+// or --by (one run per product).
+func (f *dbFlags) checkSave(spec *demand.Spec) error {
+	switch {
+	case f.save == "":
+		return nil
+	case !f.active():
+		return fmt.Errorf("--save-moments writes the sums a database returned: use it with --db and --table or --query")
+	case spec.By != "":
+		return fmt.Errorf("--save-moments writes the sums of one model; --by runs one per product: leave out --by, or narrow --query to one product")
+	}
+	return nil
+}
+
 // active reports whether the data comes from a database or a moments
 // file rather than a panel file.
 func (f *dbFlags) active() bool {

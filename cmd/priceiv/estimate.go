@@ -77,6 +77,9 @@ flags override it.`,
 			} else if spec, panel, err = loadInputs(cmd, &mf, args, useDemo); err != nil {
 				return err
 			}
+			if err := db.checkSave(spec); err != nil {
+				return err
+			}
 			if boot < 0 || spec.Bootstrap < 0 {
 				return fmt.Errorf("--bootstrap must be 0 (off) or a number of replicates of at least %d (999 is usual)", elasticity.MinBootstrap)
 			}

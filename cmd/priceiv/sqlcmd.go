@@ -18,7 +18,7 @@ func newSQLCmd() *cobra.Command {
 		Long: `sql prints the statements that compute the moment blocks of a model
 (the cross-product sums every estimate, band and shifter test is made
 from) inside a database or warehouse engine, followed by the query whose
-result is a moments file. Run the script in one session, save the final
+result is a moments file. Run the script on one connection, save the final
 result as CSV (header block,key,term,value) and estimate from it with
 'priceiv estimate --moments FILE' and the same model options. Only sums
 leave the engine; no row does.
