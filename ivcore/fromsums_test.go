@@ -1,6 +1,7 @@
 package ivcore
 
 import (
+	"errors"
 	"math"
 	"math/rand/v2"
 	"testing"
@@ -80,6 +81,29 @@ func TestFromSumsMatchesRows(t *testing.T) {
 	}
 	if d := math.Abs(fa[0].F.F-fb[0].F.F) / fa[0].F.F; d > 1e-10 {
 		t.Errorf("HC1 first-stage F: rows %g, sums %g", fa[0].F.F, fb[0].F.F)
+	}
+	// A fit that is nearly exact leaves residuals the fourth-order sums
+	// cannot resolve: HC1 from sums says so instead of printing noise.
+	exact := make([][]float64, len(cols))
+	copy(exact, cols)
+	exact[0] = make([]float64, n)
+	for i := range exact[0] {
+		exact[0][i] = 5 - 1.5*cols[1][i] + 0.2*cols[3][i] + 1e-9*float64(i%7)
+	}
+	ex := Accumulate(exact, names, nil, 2)
+	es := FromSums(names, n, func() []float64 {
+		g := make([]float64, k*k)
+		for a := 0; a < k; a++ {
+			for b := 0; b < k; b++ {
+				g[a*k+b] = ex.Gram.At(a, b)
+			}
+		}
+		return g
+	}())
+	sh, sc := fourthCentre(exact)
+	es.SetFourth(sh, sc, fourthMomentsAffine(exact, sh, sc, 2))
+	if _, err := Estimate(es, md, TSLS, HC1); !errors.Is(err, ErrPrecision) {
+		t.Errorf("HC1 of a nearly exact fit from sums: %v, want ErrPrecision", err)
 	}
 	// Without fourth moments HC1 is refused, not guessed.
 	bare := FromSums(names, n, gram)

@@ -15,6 +15,7 @@ import (
 	"testing"
 
 	"priceiv/demand"
+	"priceiv/supplyshifters"
 )
 
 // smallPanel loads a small generated panel (2 products × 30 stores × 20
@@ -486,5 +487,69 @@ func TestDBNotANumberAndNesting(t *testing.T) {
 	_, _, err = demand.BuildFromDB(context.Background(), one, demand.DBOptions{URL: pg.singleURL(), Source: demand.SQLSource{Table: "small"}})
 	if err == nil || !strings.Contains(err.Error(), "did not converge in 2 sweeps") {
 		t.Errorf("--max-sweeps 1 on a panel needing more: %v; want the not-converged error after 2 sweeps", err)
+	}
+}
+
+// TestDBHeteroskedasticityRobustWithEffects checks the HC1 pass of the
+// database path with absorbed effects (the fourth-order sums of the
+// absorbed columns) against the file path on the small generated panel:
+// estimates, HC1 standard errors, the robust first-stage F and the
+// Kleibergen-Paap and effective F of the diagnostics agree to 1e-9
+// relative (the two paths centre the fourth-order sums differently, so
+// they agree to rounding, not bit for bit; common practice).
+func TestDBHeteroskedasticityRobustWithEffects(t *testing.T) {
+	pg := loadSmall(t)
+	s := smallSpec()
+	s.FE = []string{"store", "week"}
+	s.Cluster = nil
+	s.Vcov = "hc1"
+	s.Tolerance = 1e-13
+	dir := t.TempDir()
+	csvPath := filepath.Join(dir, "small.csv")
+	smallPanel().writeCSV(t, csvPath)
+	raw, err := demand.ReadPanelFile(csvPath, demand.ReadOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	fileD, err := demand.Build(raw, s, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	dbD, _, err := demand.BuildFromDB(context.Background(), s, demand.DBOptions{URL: pg.singleURL(), Source: demand.SQLSource{Table: "small"}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	type stats struct{ coef, se []float64 }
+	var got [2]stats
+	var fsF, kp, eff [2]float64
+	for i, d := range []*demand.Design{fileD, dbD} {
+		fit, fs, err := d.Fit()
+		if err != nil {
+			t.Fatal(err)
+		}
+		for j := range fit.Coef {
+			got[i].coef = append(got[i].coef, fit.Coef[j])
+			got[i].se = append(got[i].se, fit.SE(j))
+		}
+		fsF[i] = fs[0].F.F
+		dg, err := supplyshifters.Diagnose(d, fit, supplyshifters.Options{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		kp[i], eff[i] = float64(dg.WeakIV.KPWald.Value), float64(dg.WeakIV.Effective.F)
+	}
+	rel := func(a, b float64) float64 { return math.Abs(a-b) / math.Abs(a) }
+	for j := range got[0].coef {
+		if rel(got[0].coef[j], got[1].coef[j]) > 1e-9 || rel(got[0].se[j], got[1].se[j]) > 1e-9 {
+			t.Errorf("term %d: file %.12g (%.12g), database %.12g (%.12g)", j, got[0].coef[j], got[0].se[j], got[1].coef[j], got[1].se[j])
+		}
+	}
+	for _, c := range []struct {
+		what string
+		v    [2]float64
+	}{{"first-stage F", fsF}, {"Kleibergen-Paap rk Wald F", kp}, {"effective F", eff}} {
+		if rel(c.v[0], c.v[1]) > 1e-9 || c.v[0] == 0 {
+			t.Errorf("%s: file %.12g, database %.12g", c.what, c.v[0], c.v[1])
+		}
 	}
 }
