@@ -553,3 +553,48 @@ func TestDBHeteroskedasticityRobustWithEffects(t *testing.T) {
 		}
 	}
 }
+
+// TestDBANSIScript runs the script of --dialect ansi (plain tables, every
+// loop written out) on the single server, as a warehouse would run it,
+// and checks that its result, read as a moments file, gives the estimate
+// the PostgreSQL path gives (1e-10 relative; common practice), that the
+// script leaves no table behind, and that it works with two-way
+// clustering and three effects.
+func TestDBANSIScript(t *testing.T) {
+	pg := loadSmall(t)
+	s := smallSpec()
+	s.FE = []string{"product*store", "week", "store"}
+	s.Cluster = []string{"store", "week"}
+	s.Tolerance = 1e-13
+	s.MaxSweeps = 60
+	script, err := demand.Script(s, demand.SQLSource{Table: "small"}, demand.ANSI, false)
+	if err != nil {
+		t.Fatal(err)
+	}
+	rows := runScript(t, pg, pg.singleURL(), script)
+	fromScript, err := demand.BuildFromMoments(s, rows, "ansi result")
+	if err != nil {
+		t.Fatal(err)
+	}
+	fromDB, _, err := demand.BuildFromDB(context.Background(), s, demand.DBOptions{URL: pg.singleURL(), Source: demand.SQLSource{Table: "small"}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	a := summarize(t, "ansi", fromScript)
+	b := summarize(t, "postgres", fromDB)
+	if a.n != b.n || a.dof != b.dof || fmt.Sprint(a.clusters) != fmt.Sprint(b.clusters) {
+		t.Errorf("ansi script: n %d, absorbed %d, clusters %v; postgres path: %d, %d, %v", a.n, a.dof, a.clusters, b.n, b.dof, b.clusters)
+	}
+	for j := range a.coef {
+		if math.Abs(a.coef[j]-b.coef[j]) > 1e-10*math.Abs(b.coef[j]) || math.Abs(a.se[j]-b.se[j]) > 1e-10*b.se[j] {
+			t.Errorf("term %d: ansi %.15g (%.15g), postgres %.15g (%.15g)", j, a.coef[j], a.se[j], b.coef[j], b.se[j])
+		}
+	}
+	var left int
+	if err := pg.connect(t, pg.singleURL()).QueryRow(context.Background(), "SELECT COUNT(*) FROM information_schema.tables WHERE table_name LIKE 'piv\\_%'").Scan(&left); err != nil {
+		t.Fatal(err)
+	}
+	if left != 0 {
+		t.Errorf("the ansi script left %d piv_ tables behind", left)
+	}
+}
