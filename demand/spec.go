@@ -79,6 +79,16 @@ type Spec struct {
 	MaxSweeps int     `yaml:"max_sweeps,omitempty" json:"max_sweeps,omitempty"`
 	Tolerance float64 `yaml:"tolerance,omitempty" json:"tolerance,omitempty"`
 
+	// The data in a database (priceiv estimate and sql): DB is a
+	// PostgreSQL URL, best without a password (PGPASSWORD or ~/.pgpass
+	// supply it; it is never written out), Table or Query the panel in
+	// it. Moments names a moments file to estimate from instead, read
+	// relative to the spec file.
+	DB      string `yaml:"db,omitempty" json:"-"`
+	Table   string `yaml:"table,omitempty" json:"table,omitempty"`
+	Query   string `yaml:"query,omitempty" json:"query,omitempty"`
+	Moments string `yaml:"moments,omitempty" json:"moments,omitempty"`
+
 	// Report options, used by priceiv report (the meeting pack) and
 	// ignored by the other commands. Title heads the report. Prices names
 	// a CSV of current prices per product (product, price, and optionally

@@ -263,6 +263,27 @@ func TestDBCommandLine(t *testing.T) {
 	if len(els) != 1 || dig(els[0], "bootstrap", "replicates") != 199.0 || dig(els[0], "bootstrap", "clusters") != 30.0 {
 		t.Errorf("bootstrap band from the database: %v", dig(bj, "elasticities"))
 	}
+	// The same run kept in a spec file, the source a multi-line query,
+	// the password left to PGPASSWORD.
+	spec := filepath.Join(dir, "model.yaml")
+	yaml := fmt.Sprintf("db: postgres://%s@127.0.0.1:%d/%s?sslmode=disable\nquery: |\n  SELECT *\n  FROM small\nquantity: units\nprice: price\ncontrols: [temp]\nshifters: [bean, freight]\nfe: [week]\ncluster: [store]\n",
+		pgUser, pg.Single.Port, pgDatabase)
+	if err := os.WriteFile(spec, []byte(yaml), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	cmd := exec.Command(bin, "estimate", "--spec", spec, "--format", "json")
+	cmd.Env = append(os.Environ(), "PGPASSWORD="+pgPassword)
+	fromSpec, err := cmd.Output()
+	if err != nil {
+		t.Fatalf("estimate --spec with a database source: %v", err)
+	}
+	var sj map[string]any
+	if err := json.Unmarshal(fromSpec, &sj); err != nil {
+		t.Fatal(err)
+	}
+	if cs, _ := json.Marshal(dig(sj, "coefficients")); string(cs) != func() string { c, _ := json.Marshal(dig(a, "coefficients")); return string(c) }() {
+		t.Errorf("spec-file database run gives other coefficients:\n%s", cs)
+	}
 	out2, errOut, err := run(append([]string{"estimate", "--moments", mfile}, model...)...)
 	if err != nil {
 		t.Fatalf("estimate --moments: %v\n%s", err, errOut)

@@ -44,6 +44,24 @@ func (f *dbFlags) checkSave(spec *demand.Spec) error {
 	return nil
 }
 
+// fromSpec fills the options not given as flags from the spec file's
+// db, table, query and moments keys (moments relative to the spec file).
+func (f *dbFlags) fromSpec(cmd *cobra.Command, s *demand.Spec, specPath string) {
+	set := func(flag string, dst *string, v string) {
+		if cmd.Flags().Lookup(flag) != nil && !cmd.Flags().Changed(flag) && v != "" {
+			*dst = v
+		}
+	}
+	set("db", &f.url, s.DB)
+	set("table", &f.table, s.Table)
+	set("query", &f.query, s.Query)
+	m := s.Moments
+	if m != "" && specPath != "" && !strings.HasPrefix(m, "/") {
+		m = joinRel(specPath, m)
+	}
+	set("moments", &f.moments, m)
+}
+
 // active reports whether the data comes from a database or a moments
 // file rather than a panel file.
 func (f *dbFlags) active() bool {

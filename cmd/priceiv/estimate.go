@@ -67,6 +67,14 @@ flags override it.`,
 			var spec *demand.Spec
 			var panel *demand.Panel
 			var err error
+			if !useDemo && mf.spec != "" {
+				// The spec file may name a database source.
+				s, err := mf.resolve(cmd, demand.Spec{})
+				if err != nil {
+					return err
+				}
+				db.fromSpec(cmd, s, mf.spec)
+			}
 			if db.active() {
 				if spec, err = resolveDBSpec(cmd, &mf); err != nil {
 					return err

@@ -49,6 +49,9 @@ estimate checks against the tolerance.`,
 			if err != nil {
 				return err
 			}
+			src := dbFlags{table: table, query: query}
+			src.fromSpec(cmd, spec, mf.spec)
+			table, query = src.table, src.query
 			if spec.By != "" {
 				return fmt.Errorf("the script computes one model: for --by, print it once per product with --query '… WHERE %s = …'", spec.By)
 			}
