@@ -28,7 +28,7 @@ func ParseDialect(s string) (Dialect, error) {
 	switch strings.ToLower(strings.TrimSpace(s)) {
 	case "postgres", "postgresql", "pg":
 		return Postgres, nil
-	case "ansi", "sql":
+	case "ansi":
 		return ANSI, nil
 	}
 	return 0, fmt.Errorf("--dialect %q: choose postgres or ansi", s)

@@ -1,7 +1,7 @@
 package demand
 
 import (
-	"errors"
+	"cmp"
 	"fmt"
 	"math"
 	"strings"
@@ -35,14 +35,11 @@ const maxLabelSteps = 1000
 // errNoSource is returned when neither a table nor a query is named.
 var errNoSource = fmt.Errorf("%w: name the data with --table NAME or --query 'SELECT …'", ErrSpec)
 
-// errStopEarly ends a run after the profile, when the profile already
-// shows the rows cannot be used.
-var errStopEarly = errors.New("stop")
-
-// run carries out the plan on r and returns the final query, whose rows
-// (block, key, term, value) are the moments file. check, when not nil,
-// is called with the profile's rows as soon as they exist (a connection
-// stops there when no row is usable).
+// run carries out the plan on r and returns how its loops ended, from
+// which final and unpivot write the final query (its rows, block, key,
+// term and value, are the moments file). check, when not nil, is called
+// with the query of the profile's rows as soon as they exist (a
+// connection stops there when no row is usable).
 func (p *sqlPlan) run(r stepRunner, check func(final string) error) (runState, error) {
 	var st runState
 	ex := func(sql string) error {
@@ -148,7 +145,11 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (runState, e
 				p.dropSweep(ex, s-2)
 				continue
 			}
-			worst := 0.0
+			// The convergence measure: the largest, over columns, of
+			// the summed changes of every effect relative to the
+			// column's standard deviation (a bound on the largest
+			// change of any residual).
+			change := make([]float64, len(sd))
 			for e := range p.fes {
 				if err := ex(p.change(e, s)); err != nil {
 					return st, err
@@ -158,10 +159,17 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (runState, e
 					if err != nil {
 						return st, err
 					}
-					st.addChange(v, sd, e)
+					for j, x := range v {
+						change[j] += x / cmp.Or(max(sd[j], 0), 1)
+					}
 				}
 			}
-			worst = st.worst()
+			worst := 0.0
+			for _, x := range change {
+				if x > worst || math.IsNaN(x) {
+					worst = x
+				}
+			}
 			p.dropSweep(ex, s-2)
 			if !r.printing() && (worst <= p.tol() || math.IsNaN(worst)) {
 				break // converged, or a value that is not a number: reported when read
@@ -172,7 +180,6 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (runState, e
 						return st, err
 					}
 				}
-				st.change = nil
 			}
 		}
 	}
@@ -231,40 +238,6 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (runState, e
 type runState struct {
 	sweeps int            // last sweep of the absorption
 	labels map[[2]int]int // last step of label propagation, per pair of effects
-	change [][]float64
-}
-
-func (st *runState) addChange(v, sd []float64, e int) {
-	for len(st.change) <= e {
-		st.change = append(st.change, nil)
-	}
-	out := make([]float64, len(v))
-	for j, x := range v {
-		s := sd[j]
-		if !(s > 0) {
-			s = 1
-		}
-		out[j] = x / s
-	}
-	st.change[e] = out
-}
-
-// worst is the convergence measure: the largest, over columns, of the
-// summed changes of every effect relative to the column's standard
-// deviation (a bound on the largest change of any residual).
-func (st *runState) worst() float64 {
-	w := 0.0
-	if len(st.change) == 0 {
-		return 0
-	}
-	for j := range st.change[0] {
-		s := 0.0
-		for _, c := range st.change {
-			s += c[j]
-		}
-		w = max(w, s)
-	}
-	return w
 }
 
 // dropSweep drops the effect tables of sweep s (kept one sweep longer
