@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"math"
 	"net"
+	neturl "net/url"
 	"strings"
 	"sync/atomic"
 	"time"
@@ -503,4 +504,35 @@ func containsPassword(text, url string) bool {
 		}
 	}
 	return pw != "" && strings.Contains(text, pw)
+}
+
+// RedactURL returns a PostgreSQL connection URL or key=value string with
+// its password taken out (user, host, port, database and options kept),
+// for writing down where data came from.
+func RedactURL(s string) string {
+	if s == "" {
+		return s
+	}
+	if strings.Contains(s, "://") {
+		u, err := neturl.Parse(s)
+		if err != nil {
+			return "(a connection URL that does not parse)"
+		}
+		if u.User != nil {
+			u.User = neturl.User(u.User.Username())
+		}
+		q := u.Query()
+		if q.Has("password") {
+			q.Del("password")
+			u.RawQuery = q.Encode()
+		}
+		return u.String()
+	}
+	var kept []string
+	for _, f := range strings.Fields(s) {
+		if !strings.HasPrefix(strings.ToLower(f), "password=") {
+			kept = append(kept, f)
+		}
+	}
+	return strings.Join(kept, " ")
 }

@@ -223,9 +223,12 @@ func friendlyYAML(msg string) string {
 	return msg
 }
 
-// Marshal returns the spec as YAML (for the run record).
+// Marshal returns the spec as YAML (for the run record), with any
+// password taken out of DB.
 func (s *Spec) Marshal() []byte {
-	b, _ := yaml.Marshal(s)
+	c := *s
+	c.DB = RedactURL(c.DB)
+	b, _ := yaml.Marshal(&c)
 	return b
 }
 

@@ -101,7 +101,7 @@ const prefix = "piv_"
 const maxSQLColumns = 10
 
 // maxBlockColumns bounds the model columns of the SQL path: a block row
-// holds K(K+1)/2 + K + 5 sums (950 at K = 40).
+// holds K(K+1)/2 + K + 5 sums (865 at K = 40).
 const maxBlockColumns = 40
 
 // newSQLPlan lays out the SQL of spec over the source. hc1 adds the pass
@@ -298,7 +298,7 @@ func (p *sqlPlan) prelude() []string {
 		"SET temp_buffers = '256MB'",
 		// Literals are written with doubled quotes only.
 		"SET standard_conforming_strings = on",
-		// Compiling the wide aggregates (up to 1365 sums) costs seconds
+		// Compiling the wide aggregates (up to 1001 sums) costs seconds
 		// and saves nothing on sums of a few columns.
 		"SET jit = off",
 	}

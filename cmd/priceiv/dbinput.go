@@ -44,11 +44,25 @@ func (f *dbFlags) checkSave(spec *demand.Spec) error {
 	return nil
 }
 
-// fromSpec fills the options not given as flags from the spec file's
-// db, table, query and moments keys (moments relative to the spec file).
-func (f *dbFlags) fromSpec(cmd *cobra.Command, s *demand.Spec, specPath string) {
+// fromSpec takes the data's source from the spec file's db, table, query
+// and moments keys (moments relative to the spec file) when the command
+// line names none: the source is one choice, so a source given on the
+// command line (--db, --table, --query, --moments, --data or a panel
+// file argument) replaces all of the spec file's.
+func (f *dbFlags) fromSpec(cmd *cobra.Command, args []string, s *demand.Spec, specPath string) error {
+	if len(args) > 0 {
+		return nil
+	}
+	for _, flag := range []string{"db", "table", "query", "moments", "data"} {
+		if cmd.Flags().Changed(flag) {
+			return nil
+		}
+	}
+	if s.Data != "" && (s.DB != "" || s.Table != "" || s.Query != "" || s.Moments != "") {
+		return fmt.Errorf("%s names two sources, data: %s and a database (db, table, query or moments): keep one", specPath, s.Data)
+	}
 	set := func(flag string, dst *string, v string) {
-		if cmd.Flags().Lookup(flag) != nil && !cmd.Flags().Changed(flag) && v != "" {
+		if cmd.Flags().Lookup(flag) != nil && v != "" {
 			*dst = v
 		}
 	}
@@ -60,6 +74,7 @@ func (f *dbFlags) fromSpec(cmd *cobra.Command, s *demand.Spec, specPath string) 
 		m = joinRel(specPath, m)
 	}
 	set("moments", &f.moments, m)
+	return nil
 }
 
 // active reports whether the data comes from a database or a moments

@@ -73,7 +73,9 @@ flags override it.`,
 				if err != nil {
 					return err
 				}
-				db.fromSpec(cmd, s, mf.spec)
+				if err := db.fromSpec(cmd, args, s, mf.spec); err != nil {
+					return err
+				}
 			}
 			if db.active() {
 				if spec, err = resolveDBSpec(cmd, &mf); err != nil {

@@ -50,7 +50,9 @@ estimate checks against the tolerance.`,
 				return err
 			}
 			src := dbFlags{table: table, query: query}
-			src.fromSpec(cmd, spec, mf.spec)
+			if err := src.fromSpec(cmd, args, spec, mf.spec); err != nil {
+				return err
+			}
 			table, query = src.table, src.query
 			if spec.By != "" {
 				return fmt.Errorf("the script computes one model: for --by, print it once per product with --query '… WHERE %s = …'", spec.By)
