@@ -4,6 +4,7 @@ import (
 	"cmp"
 	"fmt"
 	"math"
+	"slices"
 	"strings"
 )
 
@@ -183,9 +184,35 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (runState, e
 			}
 		}
 	}
-	// Connected components of pairs of effects.
+	// Effects nested in each clustering dimension.
+	for d := range p.dims() {
+		for e := range p.fes {
+			if err := ex(p.nested(d, e)); err != nil {
+				return st, err
+			}
+		}
+	}
+	// Connected components of pairs of effects: a connection labels only
+	// the pairs the degrees of freedom need (the first two effects, and
+	// the first two effects nested in each clustering dimension); a
+	// printed script, which cannot look, every pair.
 	st.labels = map[[2]int]int{}
-	for _, pr := range p.pairs() {
+	st.pairs = p.pairs()
+	if !r.printing() && len(st.pairs) > 1 {
+		nested := make([][]bool, len(p.dims()))
+		for d := range p.dims() {
+			nested[d] = make([]bool, len(p.fes))
+			for e := range p.fes {
+				v, err := r.values("SELECT CAST(n AS DOUBLE PRECISION) FROM " + p.t(fmt.Sprintf("nest%d_%d", d, e)))
+				if err != nil {
+					return st, err
+				}
+				nested[d][e] = v[0] == 0
+			}
+		}
+		st.pairs = neededPairs(len(p.fes), nested)
+	}
+	for _, pr := range st.pairs {
 		for _, s := range p.edges(pr) {
 			if err := ex(s); err != nil {
 				return st, err
@@ -213,13 +240,6 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (runState, e
 			}
 		}
 	}
-	for d := range p.dims() {
-		for e := range p.fes {
-			if err := ex(p.nested(d, e)); err != nil {
-				return st, err
-			}
-		}
-	}
 	if err := ex(p.residuals(st.sweeps)); err != nil {
 		return st, err
 	}
@@ -238,6 +258,33 @@ func (p *sqlPlan) run(r stepRunner, check func(final string) error) (runState, e
 type runState struct {
 	sweeps int            // last sweep of the absorption
 	labels map[[2]int]int // last step of label propagation, per pair of effects
+	pairs  [][2]int       // the pairs labelled
+}
+
+// neededPairs lists the pairs of effects whose connected components the
+// degrees of freedom use, given which effects are nested in each
+// clustering dimension: the first two effects, and the first two nested
+// ones of each dimension.
+func neededPairs(effects int, nested [][]bool) [][2]int {
+	if effects < 2 {
+		return nil
+	}
+	out := [][2]int{{0, 1}}
+	for _, nd := range nested {
+		var first []int
+		for e, ok := range nd {
+			if ok && len(first) < 2 {
+				first = append(first, e)
+			}
+		}
+		if len(first) == 2 {
+			pr := [2]int{first[0], first[1]}
+			if !slices.Contains(out, pr) {
+				out = append(out, pr)
+			}
+		}
+	}
+	return out
 }
 
 // dropSweep drops the effect tables of sweep s (kept one sweep longer
@@ -429,7 +476,7 @@ func (p *sqlPlan) final(st runState) ([]string, []widePart) {
 				}
 			}
 		}
-		for _, pr := range p.pairs() {
+		for _, pr := range st.pairs {
 			t := st.labels[pr]
 			parts = append(parts,
 				row(lit("absorb"), "''", "components"+pairName(pr), "COUNT(DISTINCT lab)", p.labelTable(pr, t)),

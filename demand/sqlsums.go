@@ -433,9 +433,26 @@ func absorptionFromMoments(p *sqlPlan, m *momentSet, source string, d *Design, k
 				strings.Join(p.spec.FE, ", "), ab.Iterations, worstCol, worst, ab.Tol, fix)
 		}
 	}
-	// Connected components of pairs of effects.
+	// Effects nested in each clustering dimension.
+	nested := make([][]int, len(p.dims()))
+	nestedMask := make([][]bool, len(p.dims()))
+	for dd := range p.dims() {
+		nestedMask[dd] = make([]bool, len(p.fes))
+		for e := range p.fes {
+			v, err := get("nested", strconv.Itoa(dd), fmt.Sprintf("effect%d", e))
+			if err != nil {
+				return nil, nil, err
+			}
+			if v == 0 {
+				nested[dd] = append(nested[dd], e)
+				nestedMask[dd][e] = true
+			}
+		}
+	}
+	// Connected components of the pairs of effects the degrees of freedom
+	// use (a printed script labels every pair; the others are unused).
 	comps := map[[2]int]int{}
-	for _, pr := range p.pairs() {
+	for _, pr := range neededPairs(len(p.fes), nestedMask) {
 		moved, err := get("absorb", "", "moved"+pairName(pr))
 		if err != nil {
 			return nil, nil, err
@@ -476,22 +493,10 @@ func absorptionFromMoments(p *sqlPlan, m *momentSet, source string, d *Design, k
 	for _, e := range ab.Effects {
 		ab.DoF += e.Levels - e.Redundant
 	}
-	// Effects nested in each clustering dimension.
+	// The rank of the nested effects' dummies alone, as Build counts it.
 	nestedDoF := make([]int, len(p.dims()))
 	for dd := range p.dims() {
-		var nested []int
-		for e := range p.fes {
-			v, err := get("nested", strconv.Itoa(dd), fmt.Sprintf("effect%d", e))
-			if err != nil {
-				return nil, nil, err
-			}
-			if v == 0 {
-				nested = append(nested, e)
-			}
-		}
-		// The rank of the nested effects' dummies alone, as Build
-		// counts it.
-		nestedDoF[dd] = rank(nested)
+		nestedDoF[dd] = rank(nested[dd])
 	}
 	return ab, nestedDoF, nil
 }
