@@ -32,6 +32,19 @@ func loadSmall(t *testing.T) *pgCluster {
 
 var smallOnce sync.Once
 
+// smallFromFile writes the small panel as CSV and reads it back, the file
+// path's panel to compare the database path with.
+func smallFromFile(t *testing.T) *demand.Panel {
+	t.Helper()
+	path := filepath.Join(t.TempDir(), "small.csv")
+	smallPanel().writeCSV(t, path)
+	raw, err := demand.ReadPanelFile(path, demand.ReadOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	return raw
+}
+
 func smallSpec() *demand.Spec {
 	return &demand.Spec{Quantity: "units", Price: "price", Controls: []string{"temp"}, Shifters: []string{"bean", "freight"},
 		FE: []string{"week"}, Cluster: []string{"store"}}
@@ -466,13 +479,7 @@ func TestDBNotANumberAndNesting(t *testing.T) {
 		t.Errorf("NaN prices: dropped %v (n %d); without them %v (n %d)", d.Dropped, d.N, ref.Dropped, ref.N)
 	}
 
-	dir := t.TempDir()
-	csvPath := filepath.Join(dir, "small.csv")
-	smallPanel().writeCSV(t, csvPath)
-	raw, err := demand.ReadPanelFile(csvPath, demand.ReadOptions{})
-	if err != nil {
-		t.Fatal(err)
-	}
+	raw := smallFromFile(t)
 	three := smallSpec()
 	three.FE = []string{"store", "week", "product*store"}
 	three.Tolerance = 1e-13
@@ -525,13 +532,7 @@ func TestDBHeteroskedasticityRobustWithEffects(t *testing.T) {
 	s.Cluster = nil
 	s.Vcov = "hc1"
 	s.Tolerance = 1e-13
-	dir := t.TempDir()
-	csvPath := filepath.Join(dir, "small.csv")
-	smallPanel().writeCSV(t, csvPath)
-	raw, err := demand.ReadPanelFile(csvPath, demand.ReadOptions{})
-	if err != nil {
-		t.Fatal(err)
-	}
+	raw := smallFromFile(t)
 	fileD, err := demand.Build(raw, s, 0)
 	if err != nil {
 		t.Fatal(err)
